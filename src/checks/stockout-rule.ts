@@ -1,0 +1,115 @@
+/**
+ * The stock-out rule (DESIGN.md, "Stock-out zeros"), as a pure function over one series so the
+ * check, the feature build's mask and the audit all use the same code.
+ *
+ * Over the `lookback` days before a zero run (missing days and days of runs already flagged
+ * excluded) estimate the zero-day chance p0: with mean mu and sample variance s2, a negative
+ * binomial by moments when s2 > mu (r = mu^2/(s2 - mu), p0 = (r/(r + mu))^r), else Poisson
+ * (p0 = e^-mu). A run of k zeros has chance p0^k; it is a stock-out from k* = ceil(ln a / ln p0).
+ */
+export interface StockoutParams {
+  /** Per-run false-alarm level; 1e-6 by default because a chain tests hundreds of thousands of runs. */
+  readonly alpha: number;
+  /** Days before the run used to estimate the rate. */
+  readonly lookback: number;
+  /** Fewer valid days than this in the lookback: no estimate, the run is not judged. */
+  readonly minHistory: number;
+}
+
+export const DEFAULT_STOCKOUT_PARAMS: StockoutParams = Object.freeze({ alpha: 1e-6, lookback: 56, minHistory: 14 });
+
+export type ZeroRunKind = 'stockout' | 'plausible' | 'pre-launch' | 'open' | 'unjudged';
+
+export interface ZeroRun {
+  /** Index of the first zero day in the input array. */
+  readonly start: number;
+  /** Index of the last zero day (inclusive). */
+  readonly end: number;
+  readonly kind: ZeroRunKind;
+  readonly mean: number;
+  readonly variance: number;
+  readonly p0: number;
+  /** Run length from which the run is improbable; Infinity when p0 is 1 or unknown. */
+  readonly kStar: number;
+  /** Index of the day the run became detectable (start + k* - 1), or -1 if it never did. */
+  readonly detectable: number;
+}
+
+/** Zero-day probability of a count with mean `mu` and variance `s2` (negative binomial or Poisson). */
+export function zeroProbability(mu: number, s2: number): number {
+  if (!(mu > 0)) return 1;
+  if (s2 > mu) {
+    const r = (mu * mu) / (s2 - mu);
+    return (r / (r + mu)) ** r;
+  }
+  return Math.exp(-mu);
+}
+
+/** Smallest run length k with p0^k at or below alpha: ceil(ln alpha / ln p0). */
+export function criticalRunLength(p0: number, alpha: number): number {
+  if (!(p0 < 1) || !(p0 >= 0)) return Number.POSITIVE_INFINITY;
+  if (p0 === 0) return 1;
+  return Math.max(1, Math.ceil(Math.log(alpha) / Math.log(p0)));
+}
+
+/**
+ * Classifies every run of zeros in `units`, a dense daily array of one series (index = day
+ * offset, NaN = no row that day). Runs still open at the last index are `open`; zeros before
+ * the first positive sale are `pre-launch`; neither is a stock-out.
+ */
+export function classifyZeroRuns(
+  units: ArrayLike<number>,
+  params: StockoutParams = DEFAULT_STOCKOUT_PARAMS,
+): ZeroRun[] {
+  const n = units.length;
+  const runs: ZeroRun[] = [];
+  const flagged = new Uint8Array(n);
+  let firstSale = -1;
+  for (let i = 0; i < n; i++) {
+    if ((units[i] as number) > 0) {
+      firstSale = i;
+      break;
+    }
+  }
+  let i = 0;
+  while (i < n) {
+    if (units[i] !== 0) {
+      i++;
+      continue;
+    }
+    const start = i;
+    while (i < n && units[i] === 0) i++;
+    const end = i - 1;
+    const base = { start, end, mean: Number.NaN, variance: Number.NaN, p0: Number.NaN };
+    if (firstSale < 0 || start < firstSale) {
+      runs.push({ ...base, kind: 'pre-launch', kStar: Number.POSITIVE_INFINITY, detectable: -1 });
+      continue;
+    }
+    let cnt = 0;
+    let sum = 0;
+    let sumSq = 0;
+    for (let j = Math.max(0, start - params.lookback); j < start; j++) {
+      const v = units[j] as number;
+      if (Number.isNaN(v) || flagged[j]) continue;
+      cnt++;
+      sum += v;
+      sumSq += v * v;
+    }
+    const open = end === n - 1;
+    if (cnt < params.minHistory) {
+      runs.push({ ...base, kind: open ? 'open' : 'unjudged', kStar: Number.POSITIVE_INFINITY, detectable: -1 });
+      continue;
+    }
+    const mean = sum / cnt;
+    const variance = cnt > 1 ? (sumSq - cnt * mean * mean) / (cnt - 1) : 0;
+    const p0 = zeroProbability(mean, variance);
+    const kStar = criticalRunLength(p0, params.alpha);
+    const len = end - start + 1;
+    const reached = len >= kStar;
+    const detectable = reached ? start + kStar - 1 : -1;
+    const kind: ZeroRunKind = open ? 'open' : reached ? 'stockout' : 'plausible';
+    if (kind === 'stockout') flagged.fill(1, start, end + 1);
+    runs.push({ start, end, mean, variance, p0, kStar, detectable, kind });
+  }
+  return runs;
+}

@@ -1,0 +1,24 @@
+import { z } from 'zod';
+
+/**
+ * Config sections owned by later pipeline stages. Each stage validates its own section in depth
+ * (check parameters by the check registry, feature sets by the build); here they are only shaped.
+ */
+export const checksSectionSchema = z
+  .record(z.string(), z.record(z.string(), z.unknown()))
+  .default({})
+  .describe('per-check settings: { "<check-name>": { enabled, severity, ...parameters } }');
+
+export const setsSectionSchema = z.array(z.unknown()).default([]).describe('feature sets');
+
+export const serveSectionSchema = z
+  .object({
+    port: z.number().int().min(1).max(65535).default(8080),
+    host: z.string().default('127.0.0.1'),
+    tokens: z.array(z.string().min(16, 'a token of at least 16 characters')).default([]),
+    batchLimit: z.number().int().min(1).max(100_000).default(1000),
+  })
+  .strict()
+  .default({ port: 8080, host: '127.0.0.1', tokens: [], batchLimit: 1000 });
+
+export const pipelineSectionSchema = z.record(z.string(), z.unknown()).default({});
