@@ -16,7 +16,11 @@ export interface StockoutParams {
   readonly minHistory: number;
 }
 
-export const DEFAULT_STOCKOUT_PARAMS: StockoutParams = Object.freeze({ alpha: 1e-6, lookback: 56, minHistory: 14 });
+export const DEFAULT_STOCKOUT_PARAMS: StockoutParams = Object.freeze({
+  alpha: 1e-6,
+  lookback: 56,
+  minHistory: 14,
+});
 
 export type ZeroRunKind = 'stockout' | 'plausible' | 'pre-launch' | 'open' | 'unjudged';
 
@@ -97,7 +101,12 @@ export function classifyZeroRuns(
     }
     const open = end === n - 1;
     if (cnt < params.minHistory) {
-      runs.push({ ...base, kind: open ? 'open' : 'unjudged', kStar: Number.POSITIVE_INFINITY, detectable: -1 });
+      runs.push({
+        ...base,
+        kind: open ? 'open' : 'unjudged',
+        kStar: Number.POSITIVE_INFINITY,
+        detectable: -1,
+      });
       continue;
     }
     const mean = sum / cnt;

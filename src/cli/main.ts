@@ -8,7 +8,9 @@ const COMMANDS: CommandModule[] = [init];
 
 export async function main(argv: readonly string[]): Promise<number> {
   const program = new Command('larder')
-    .description('Leak-free features for retail demand forecasting: load, check, build, export, publish, serve.')
+    .description(
+      'Leak-free features for retail demand forecasting: load, check, build, export, publish, serve.',
+    )
     .option('-c, --config <file>', 'config file (default: larder.config.ts|js|json in the working directory)')
     .showHelpAfterError()
     .exitOverride();

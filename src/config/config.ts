@@ -4,11 +4,32 @@ import { pathToFileURL } from 'node:url';
 import { z } from 'zod';
 import { ConfigError } from '../db/errors.js';
 import { type Env, readEnv } from './env.js';
-import { checksSectionSchema, pipelineSectionSchema, serveSectionSchema, setsSectionSchema } from './sections.js';
+import {
+  checksSectionSchema,
+  pipelineSectionSchema,
+  serveSectionSchema,
+  setsSectionSchema,
+} from './sections.js';
 
 const ident = z.string().regex(/^[a-z][a-z0-9_]{0,62}$/, 'a name matching ^[a-z][a-z0-9_]{0,62}$');
-export const WEEKDAYS = ['sunday', 'monday', 'tuesday', 'wednesday', 'thursday', 'friday', 'saturday'] as const;
-export const RAW_TABLES = ['items', 'stores', 'sales', 'prices', 'calendar', 'events', 'benefit_days'] as const;
+export const WEEKDAYS = [
+  'sunday',
+  'monday',
+  'tuesday',
+  'wednesday',
+  'thursday',
+  'friday',
+  'saturday',
+] as const;
+export const RAW_TABLES = [
+  'items',
+  'stores',
+  'sales',
+  'prices',
+  'calendar',
+  'events',
+  'benefit_days',
+] as const;
 
 /** Source column name -> contract column name, or null to ignore an extra column. */
 const columnMapSchema = z.record(z.string(), z.string().nullable());

@@ -17,7 +17,9 @@ export type Env = Readonly<z.infer<typeof envSchema>>;
 /** Reads `process.env` (the only place that does), failing with every problem listed. */
 export function readEnv(source: NodeJS.ProcessEnv = process.env): Env {
   const picked = Object.fromEntries(
-    Object.keys(envSchema.shape).flatMap((k) => (source[k] === undefined || source[k] === '' ? [] : [[k, source[k]]])),
+    Object.keys(envSchema.shape).flatMap((k) =>
+      source[k] === undefined || source[k] === '' ? [] : [[k, source[k]]],
+    ),
   );
   const parsed = envSchema.safeParse(picked);
   if (!parsed.success) {

@@ -79,7 +79,10 @@ export class CopyBinaryWriter {
 
   /** A float8 cell; NaN is written as SQL NULL (features use NaN for "not computable"). */
   float8(v: number): void {
-    if (Number.isNaN(v)) return this.null();
+    if (Number.isNaN(v)) {
+      this.null();
+      return;
+    }
     this.ensure(12);
     this.buf.writeInt32BE(8, this.pos);
     this.buf.writeDoubleBE(v, this.pos + 4);
@@ -174,7 +177,9 @@ export async function* readCopyBinary(
   let n = 0;
 
   for await (const chunk of source) {
-    pending = pending.length ? Buffer.concat([pending, chunk]) : Buffer.from(chunk.buffer, chunk.byteOffset, chunk.byteLength);
+    pending = pending.length
+      ? Buffer.concat([pending, chunk])
+      : Buffer.from(chunk.buffer, chunk.byteOffset, chunk.byteLength);
     let p = 0;
     if (!headerDone) {
       if (pending.length < 19) continue;
@@ -192,7 +197,8 @@ export async function* readCopyBinary(
         p += 2;
         break;
       }
-      if (fields !== types.length) throw new Error(`binary COPY row has ${fields} fields, expected ${types.length}`);
+      if (fields !== types.length)
+        throw new Error(`binary COPY row has ${fields} fields, expected ${types.length}`);
       // Make sure the whole tuple is buffered before decoding any of it.
       let q = p + 2;
       let complete = true;
@@ -202,7 +208,7 @@ export async function* readCopyBinary(
           break;
         }
         const l = buf.readInt32BE(q);
-        q += 4 + (l > 0 ? l : 0);
+        q += 4 + Math.max(l, 0);
         if (q > len) {
           complete = false;
           break;
@@ -260,5 +266,10 @@ export async function* readCopyBinary(
   }
   if (!headerDone && pending.length === 0 && !done) return;
   if (!done) throw new Error('binary COPY stream ended without its trailer');
-  if (n > 0) yield { length: n, columns: cur.columns.map((c) => c.slice(0, n) as Column), nulls: cur.nulls.map((x) => x.slice(0, n)) };
+  if (n > 0)
+    yield {
+      length: n,
+      columns: cur.columns.map((c) => c.slice(0, n) as Column),
+      nulls: cur.nulls.map((x) => x.slice(0, n)),
+    };
 }

@@ -26,7 +26,7 @@ export class LarderError extends Error {
 export class UsageError extends LarderError {
   constructor(message: string, options?: { cause?: unknown }) {
     super('USAGE', message, options);
-    this.name = "UsageError";
+    this.name = 'UsageError';
   }
 }
 

@@ -8,7 +8,10 @@ import { databaseUrl } from './servers.js';
 
 /** A schema name derived from the test file's path, so parallel files never share tables. */
 export function schemaFor(metaUrl: string, suffix = ''): string {
-  const hash = createHash('sha256').update(fileURLToPath(metaUrl) + suffix).digest('hex').slice(0, 12);
+  const hash = createHash('sha256')
+    .update(fileURLToPath(metaUrl) + suffix)
+    .digest('hex')
+    .slice(0, 12);
   return `t_${hash}`;
 }
 

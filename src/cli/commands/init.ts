@@ -10,6 +10,8 @@ export function register(program: Command, ctx: CliContext): void {
       const db = await ctx.db();
       const applied = await migrate(db); // already applied by ctx.db(); reports the state
       const total = (await db.query<{ n: number }>('SELECT count(*)::int AS n FROM migrations')).rows[0]?.n;
-      ctx.out(`schema ${db.schema} (${db.kind}): ${total} migrations applied${applied.length ? '' : ', none pending'}`);
+      ctx.out(
+        `schema ${db.schema} (${db.kind}): ${total} migrations applied${applied.length ? '' : ', none pending'}`,
+      );
     });
 }
