@@ -21,4 +21,5 @@ export const serveSectionSchema = z
   .strict()
   .default({ port: 8080, host: '127.0.0.1', tokens: [], batchLimit: 1000 });
 
-export const pipelineSectionSchema = z.record(z.string(), z.unknown()).default({});
+/** The job runner's section (watched folder, steps, schedules, workers): src/jobs/pipeline-config.ts. */
+export { pipelineSectionSchema } from '../jobs/pipeline-config.js';
