@@ -17,9 +17,26 @@ export const serveSectionSchema = z
     host: z.string().default('127.0.0.1'),
     tokens: z.array(z.string().min(16, 'a token of at least 16 characters')).default([]),
     batchLimit: z.number().int().min(1).max(100_000).default(1000),
+    /** Seconds an old version stays readable after a publish switches the pointer. */
+    graceSeconds: z.number().int().min(1).default(600),
+    /** Expiry of a version while it is being written, so a crashed publish cleans up after itself. */
+    pendingSeconds: z.number().int().min(60).default(3600),
+    /** A Redis command unanswered in this time fails over to PostgreSQL. */
+    redisTimeoutMs: z.number().int().min(10).max(60_000).default(250),
+    /** How long a reader trusts the pointer it last read (0: read it on every request). */
+    pointerCacheMs: z.number().int().min(0).max(60_000).default(1000),
   })
   .strict()
-  .default({ port: 8080, host: '127.0.0.1', tokens: [], batchLimit: 1000 });
+  .default({
+    port: 8080,
+    host: '127.0.0.1',
+    tokens: [],
+    batchLimit: 1000,
+    graceSeconds: 600,
+    pendingSeconds: 3600,
+    redisTimeoutMs: 250,
+    pointerCacheMs: 1000,
+  });
 
 /** The job runner's section (watched folder, steps, schedules, workers): src/jobs/pipeline-config.ts. */
 export { pipelineSectionSchema } from '../jobs/pipeline-config.js';

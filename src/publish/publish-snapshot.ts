@@ -1,0 +1,297 @@
+import { endianness } from 'node:os';
+import type { Config } from '../config/config.js';
+import { formatDay, parseDay } from '../core/days.js';
+import { readCopyBinary } from '../db/binary-copy.js';
+import { type Db, type DbSession, quoteIdent, safeIdent } from '../db/database.js';
+import { LarderError, UsageError } from '../db/errors.js';
+import { type CacheEntry, CacheUnavailableError, type FeatureCache, pushTo } from './feature-cache.js';
+import {
+  KeyLayout,
+  type Manifest,
+  type ManifestStore,
+  packMatrix,
+  parseManifest,
+  splitItems,
+} from './layout.js';
+import { findSnapshot, type SnapshotEntry } from './snapshot-catalogue.js';
+
+export interface PublishOptions {
+  readonly set: string;
+  /** The snapshot's cutoff, `YYYY-MM-DD`. */
+  readonly cutoff: string;
+  /** Seconds the previous version stays readable after the switch (default `serve.graceSeconds`). */
+  readonly graceSeconds?: number;
+  /** Called after each written batch of series (progress for the CLI and the job runner). */
+  readonly onProgress?: (written: number) => void;
+}
+
+export interface PublishResult {
+  readonly publishId: number;
+  readonly set: string;
+  readonly cutoff: string;
+  readonly version: number;
+  /** Series keys written (one per series). */
+  readonly keys: number;
+  /** Bytes of values written: vectors, store indexes and the manifest. */
+  readonly bytes: number;
+  readonly seconds: number;
+  /** The version the pointer named before, now expiring; null on the first publish. */
+  readonly previous: number | null;
+}
+
+/** Series written per cache round. */
+const WRITE_BATCH = 2000;
+const LITTLE_ENDIAN_HOST = endianness() === 'LE';
+
+/**
+ * Copies the prediction rows (`C+1 .. C+H`) of the snapshot of `(set, cutoff)` into the cache
+ * as a new version, then switches the set's pointer to it (docs/serving.md):
+ * 1. every key is written with an expiry (`serve.pendingSeconds`), so a publisher that dies
+ *    mid-write leaves nothing behind for long and the pointer never names a partial version;
+ * 2. the keys are counted back (EXISTS per store tag) against what was written;
+ * 3. their expiry is removed, the pointer is swapped in one SET ... GET, and the previous
+ *    version's keys get the grace expiry.
+ * One publisher per set at a time (advisory lock); each publish is a row in `publishes`.
+ */
+export async function publishSnapshot(
+  db: Db,
+  cache: FeatureCache,
+  config: Config,
+  opts: PublishOptions,
+): Promise<PublishResult> {
+  const set = safeIdentOrUsage(opts.set);
+  if (parseDay(opts.cutoff) === null)
+    throw new UsageError(`cutoff '${opts.cutoff}' is not a valid day (YYYY-MM-DD)`);
+  const graceSeconds = opts.graceSeconds ?? config.serve.graceSeconds;
+  if (!Number.isInteger(graceSeconds) || graceSeconds < 1) {
+    throw new UsageError(`graceSeconds must be a positive integer, got ${graceSeconds}`);
+  }
+  if (!(await cache.waitReady(Math.max(2000, config.serve.redisTimeoutMs * 4)))) {
+    throw new CacheUnavailableError(`cannot publish set '${set}': the cache is not reachable`);
+  }
+  const t0 = performance.now();
+  const lockKey = `larder.publish.${db.schema}.${set}`;
+  return db.session(async (s) => {
+    await s.query('SELECT pg_advisory_lock(hashtext($1))', [lockKey]);
+    try {
+      // Under the lock, a 'running' row of this set belongs to a publisher that died.
+      await s.query(
+        `UPDATE publishes SET status = 'abandoned', finished_at = now(),
+           message = 'the publisher stopped before finishing' WHERE set_name = $1 AND status = 'running'`,
+        [set],
+      );
+      const snap = await findSnapshot(s, set, opts.cutoff);
+      const publishId = Number(
+        (
+          await s.query<{ id: number }>(
+            `INSERT INTO publishes (set_name, cutoff, snapshot_id, status) VALUES ($1, $2::date, $3, 'running')
+             RETURNING publish_id AS id`,
+            [set, snap.cutoff, snap.snapshotId],
+          )
+        ).rows[0]!.id,
+      );
+      try {
+        const out = await writeVersion(s, cache, config, snap, graceSeconds, opts.onProgress);
+        await s.query(
+          `UPDATE publishes SET status = 'done', version = $2, keys = $3, bytes = $4, finished_at = now()
+           WHERE publish_id = $1`,
+          [publishId, out.version, out.keys, out.bytes],
+        );
+        return { publishId, set, cutoff: snap.cutoff, ...out, seconds: (performance.now() - t0) / 1000 };
+      } catch (err) {
+        await s
+          .query(
+            `UPDATE publishes SET status = 'failed', finished_at = now(), message = $2 WHERE publish_id = $1`,
+            [publishId, (err as Error).message],
+          )
+          .catch(() => {});
+        throw err;
+      }
+    } finally {
+      await s.query('SELECT pg_advisory_unlock(hashtext($1))', [lockKey]).catch(() => {});
+    }
+  });
+}
+
+function safeIdentOrUsage(set: string): string {
+  try {
+    return safeIdent(set, 'set name');
+  } catch (err) {
+    throw new UsageError((err as Error).message);
+  }
+}
+
+interface Written {
+  readonly version: number;
+  readonly keys: number;
+  readonly bytes: number;
+  readonly previous: number | null;
+}
+
+async function writeVersion(
+  s: DbSession,
+  cache: FeatureCache,
+  config: Config,
+  snap: SnapshotEntry,
+  graceSeconds: number,
+  onProgress?: (written: number) => void,
+): Promise<Written> {
+  const layout = new KeyLayout(config.redis.prefix);
+  const set = snap.set;
+  const H = snap.horizon;
+  const F = snap.columns.length;
+  const firstDay = parseDay(snap.cutoff)! + 1;
+  const pendingMs = config.serve.pendingSeconds * 1000;
+  const version = await cache.incr(layout.sequence(set));
+
+  const names = new Map<number, { item: string; store: string }>();
+  for (const r of (
+    await s.query<{ id: number; item: string; store: string }>(
+      'SELECT series_id AS id, item_id AS item, store_id AS store FROM series',
+    )
+  ).rows) {
+    names.set(r.id, { item: r.item, store: r.store });
+  }
+
+  // Rows arrive in table order, which a scan does not promise: each series' matrix fills by day
+  // and is written once all H rows are in, so memory holds only the series still incomplete.
+  const open = new Map<number, { values: Float32Array; seen: Uint8Array; count: number }>();
+  const byStore = new Map<string, string[]>();
+  const seriesKeys: string[] = [];
+  let batch: CacheEntry[] = [];
+  let bytes = 0;
+  const flush = async () => {
+    if (batch.length === 0) return;
+    await cache.setMany(batch, pendingMs);
+    batch = [];
+    onProgress?.(seriesKeys.length);
+  };
+  const cols = snap.columns.map((c) => quoteIdent(c.name)).join(', ');
+  const copy = `COPY (SELECT series_id, day${F ? `, ${cols}` : ''} FROM ${quoteIdent(snap.tableName)}
+    WHERE is_predict) TO STDOUT (FORMAT binary)`;
+  const types = ['int4', 'date', ...snap.columns.map(() => 'float8' as const)] as const;
+  const where = `snapshot ${set} ${snap.cutoff} (table ${snap.tableName})`;
+  for await (const b of readCopyBinary(s.copyTo(copy), types, 16384)) {
+    const ids = b.columns[0] as Int32Array;
+    const days = b.columns[1] as Int32Array;
+    for (let r = 0; r < b.length; r++) {
+      const id = ids[r]!;
+      const h = days[r]! - firstDay;
+      if (h < 0 || h >= H) {
+        throw new LarderError(
+          'SNAPSHOT_INVALID',
+          `${where}: series ${id} has a prediction row for ${formatDay(days[r]!)}, outside ${formatDay(firstDay)} .. ${formatDay(firstDay + H - 1)}`,
+        );
+      }
+      let m = open.get(id);
+      if (!m) {
+        m = { values: new Float32Array(H * F), seen: new Uint8Array(H), count: 0 };
+        open.set(id, m);
+      }
+      if (m.seen[h]) {
+        throw new LarderError(
+          'SNAPSHOT_INVALID',
+          `${where}: series ${id} has two prediction rows for ${formatDay(days[r]!)}`,
+        );
+      }
+      m.seen[h] = 1;
+      for (let f = 0; f < F; f++) m.values[h * F + f] = (b.columns[f + 2] as Float64Array)[r]!;
+      if (++m.count < H) continue;
+      open.delete(id);
+      const name = names.get(id);
+      if (!name)
+        throw new LarderError('SNAPSHOT_INVALID', `${where}: series ${id} is not in the series table`);
+      const key = layout.series(set, version, name.store, name.item);
+      const packed = LITTLE_ENDIAN_HOST ? Buffer.from(m.values.buffer) : packMatrix(m.values);
+      batch.push([key, packed]);
+      seriesKeys.push(key);
+      bytes += packed.byteLength;
+      pushTo(byStore, name.store, name.item);
+      if (batch.length >= WRITE_BATCH) await flush();
+    }
+  }
+  await flush();
+  if (open.size > 0) {
+    const [id, m] = open.entries().next().value!;
+    throw new LarderError(
+      'SNAPSHOT_INVALID',
+      `${where}: ${open.size} series lack prediction rows (series ${id} has ${m.count} of ${H})`,
+    );
+  }
+  if (seriesKeys.length === 0) throw new LarderError('SNAPSHOT_INVALID', `${where}: no prediction rows`);
+
+  const stores: ManifestStore[] = [...byStore].map(([store, items]) => ({ store, series: items.length }));
+  const meta: CacheEntry[] = [...byStore].map(([store, items]) => [
+    layout.storeIndex(set, version, store),
+    items.join('\n'),
+  ]);
+  const manifest: Manifest = {
+    format: 1,
+    set,
+    version,
+    cutoff: snap.cutoff,
+    horizon: H,
+    mode: snap.mode,
+    definitionHash: snap.definitionHash,
+    snapshotId: snap.snapshotId,
+    columns: snap.columns.map((c) => ({
+      name: c.name,
+      type: c.type,
+      ...(c.family ? { family: c.family } : {}),
+    })),
+    firstDay: formatDay(firstDay),
+    series: seriesKeys.length,
+    stores,
+    publishedAt: new Date().toISOString(),
+  };
+  meta.push([layout.manifest(set, version), JSON.stringify(manifest)]);
+  await cache.setMany(meta, pendingMs);
+  for (const [, v] of meta) bytes += Buffer.byteLength(v);
+
+  // Count back what landed before anything points at it.
+  const metaKeys = meta.map(([k]) => k);
+  const found = (await cache.countExisting(seriesKeys)) + (await cache.countExisting(metaKeys));
+  const expected = seriesKeys.length + metaKeys.length;
+  if (found !== expected) {
+    throw new LarderError(
+      'PUBLISH_INCOMPLETE',
+      `version ${version} of set '${set}': wrote ${expected} keys, found ${found}`,
+    );
+  }
+  const persisted = (await cache.persistMany(metaKeys)) + (await cache.persistMany(seriesKeys));
+  if (persisted !== expected) {
+    throw new LarderError(
+      'PUBLISH_INCOMPLETE',
+      `version ${version} of set '${set}': ${expected - persisted} keys expired before the switch`,
+    );
+  }
+  const prev = await cache.swap(layout.pointer(set), String(version));
+  const previous = prev === null ? null : Number(prev);
+  if (previous !== null && previous !== version)
+    await expireVersion(cache, layout, set, previous, graceSeconds);
+  return { version, keys: seriesKeys.length, bytes, previous };
+}
+
+/** Gives every key of an old version the grace expiry (found through its manifest and store indexes). */
+export async function expireVersion(
+  cache: FeatureCache,
+  layout: KeyLayout,
+  set: string,
+  version: number,
+  seconds: number,
+): Promise<number> {
+  const manifestKey = layout.manifest(set, version);
+  const text = await cache.getString(manifestKey);
+  if (text === null) return 0;
+  const manifest = parseManifest(text, manifestKey);
+  const indexKeys = manifest.stores.map((st) => layout.storeIndex(set, version, st.store));
+  const lists = await cache.getStrings(indexKeys);
+  const keys: string[] = [];
+  manifest.stores.forEach((st, i) => {
+    for (const item of splitItems(lists[i] ?? '')) keys.push(layout.series(set, version, st.store, item));
+  });
+  // Series first, manifest last: while the manifest lives the version can still be found.
+  await cache.expireMany(keys, seconds);
+  await cache.expireMany([...indexKeys, manifestKey], seconds);
+  return keys.length;
+}

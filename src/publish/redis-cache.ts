@@ -1,0 +1,199 @@
+import { Cluster, type ClusterNode, Redis } from 'ioredis';
+import { ConfigError, LarderError } from '../db/errors.js';
+import {
+  type CacheEntry,
+  CacheUnavailableError,
+  chunks,
+  type FeatureCache,
+  pushTo,
+} from './feature-cache.js';
+import { hashTag } from './layout.js';
+
+export interface RedisCacheOptions {
+  /**
+   * `redis://host:port` for one server; several `host:port` separated by commas, or the scheme
+   * `redis-cluster://`, for a Redis Cluster (the nodes are seeds; the client finds the rest).
+   */
+  readonly url: string;
+  /** Force Cluster mode for a single seed URL. */
+  readonly cluster?: boolean;
+  /**
+   * A command that gets no answer in this time fails (and a reader falls back to PostgreSQL)
+   * rather than waiting: a feature read is worth milliseconds or nothing.
+   */
+  readonly commandTimeoutMs?: number;
+  readonly connectTimeoutMs?: number;
+}
+
+/** Commands in flight per window when writing or expiring many keys. */
+const WRITE_WINDOW = 2000;
+/** Keys per MGET / EXISTS. */
+const MULTI_KEY_CHUNK = 500;
+
+interface ParsedTarget {
+  readonly cluster: boolean;
+  readonly nodes: ClusterNode[];
+  readonly url: string;
+  readonly username?: string;
+  readonly password?: string;
+}
+
+/** Parses the URL forms `createRedisCache` accepts; a malformed one is a ConfigError naming it. */
+export function parseRedisTarget(url: string, forceCluster = false): ParsedTarget {
+  const m = /^(rediss?|redis-cluster):\/\/(?:([^:@/]*)(?::([^@/]*))?@)?([^/?#]+)(.*)$/.exec(url);
+  if (!m) throw new ConfigError(`redis url '${redact(url)}' is not of the form redis://host:port`);
+  const hosts = m[4]!.split(',').filter(Boolean);
+  const nodes = hosts.map((h) => {
+    const hm = /^(\[[^\]]+\]|[^:]+)(?::(\d+))?$/.exec(h);
+    if (!hm) throw new ConfigError(`redis url '${redact(url)}': '${h}' is not host:port`);
+    return { host: hm[1]!.replace(/^\[|\]$/g, ''), port: hm[2] ? Number(hm[2]) : 6379 };
+  });
+  const cluster = forceCluster || m[1] === 'redis-cluster' || nodes.length > 1;
+  return {
+    cluster,
+    nodes,
+    url: m[1] === 'redis-cluster' ? `redis://${m[4]}${m[5]}` : url,
+    ...(m[2] ? { username: decodeURIComponent(m[2]) } : {}),
+    ...(m[3] ? { password: decodeURIComponent(m[3]) } : {}),
+  };
+}
+
+function redact(url: string): string {
+  return url.replace(/\/\/([^@/]*)@/, '//***@');
+}
+
+/** A Redis reply error (the server answered, with an error): not an outage. */
+function isReplyError(err: unknown): boolean {
+  return (err as { name?: unknown } | null)?.name === 'ReplyError';
+}
+
+/**
+ * The Redis implementation of `FeatureCache` on ioredis. Commands fail fast while disconnected
+ * (no offline queue: a queue would pile up reads that are worthless by the time Redis returns)
+ * and reconnection keeps being retried in the background, so reads resume by themselves.
+ */
+export function createRedisCache(opts: RedisCacheOptions): FeatureCache {
+  const target = parseRedisTarget(opts.url, opts.cluster);
+  const commandTimeout = opts.commandTimeoutMs ?? 250;
+  const connectTimeout = opts.connectTimeoutMs ?? 1000;
+  const retry = (times: number) => Math.min(50 * 2 ** Math.min(times, 6), 2000);
+  const common = {
+    enableOfflineQueue: false,
+    enableAutoPipelining: true,
+    commandTimeout,
+    connectTimeout,
+    maxRetriesPerRequest: 0,
+    ...(target.username ? { username: target.username } : {}),
+    ...(target.password ? { password: target.password } : {}),
+  };
+  const client: Redis | Cluster = target.cluster
+    ? new Cluster(target.nodes, {
+        enableOfflineQueue: false,
+        enableAutoPipelining: true,
+        clusterRetryStrategy: retry,
+        slotsRefreshTimeout: connectTimeout,
+        redisOptions: common,
+      })
+    : new Redis(target.url, { ...common, retryStrategy: retry });
+  let lastError: unknown;
+  // Without a listener ioredis prints every reconnect failure; the state is reported by ready().
+  client.on('error', (err: unknown) => {
+    lastError = err;
+  });
+  const what = target.cluster ? 'Redis Cluster' : 'Redis';
+  const guard = async <T>(op: string, fn: () => Promise<T>): Promise<T> => {
+    if (client.status !== 'ready') {
+      throw new CacheUnavailableError(`${what} is not connected (${client.status}) for ${op}`, {
+        cause: lastError,
+      });
+    }
+    try {
+      return await fn();
+    } catch (err) {
+      if (isReplyError(err))
+        throw new LarderError('CACHE_ERROR', `${what} refused ${op}: ${(err as Error).message}`);
+      throw new CacheUnavailableError(`${what} did not answer ${op}: ${(err as Error).message}`, {
+        cause: err,
+      });
+    }
+  };
+  // One MGET/EXISTS may only name keys of one slot in a Cluster; same tag means same slot.
+  const groups = (keys: readonly string[]): number[][] => {
+    if (!target.cluster) return chunks([...keys.keys()], MULTI_KEY_CHUNK);
+    const byTag = new Map<string, number[]>();
+    keys.forEach((k, i) => {
+      pushTo(byTag, hashTag(k), i);
+    });
+    return [...byTag.values()].flatMap((g) => chunks(g, MULTI_KEY_CHUNK));
+  };
+  const windowed = async (keys: readonly string[], fn: (k: string) => Promise<number>): Promise<number> => {
+    let total = 0;
+    for (const part of chunks(keys, WRITE_WINDOW)) {
+      for (const n of await Promise.all(part.map(fn))) total += n;
+    }
+    return total;
+  };
+  const getBuffers = (keys: readonly string[]) =>
+    guard('MGET', async () => {
+      const out = new Array<Buffer | null>(keys.length);
+      await Promise.all(
+        groups(keys).map(async (idx) => {
+          const vals = await client.mgetBuffer(idx.map((i) => keys[i]!));
+          idx.forEach((i, j) => {
+            out[i] = vals[j] ?? null;
+          });
+        }),
+      );
+      return out;
+    });
+  return {
+    kind: target.cluster ? 'cluster' : 'redis',
+    ready: () => client.status === 'ready',
+    waitReady(timeoutMs) {
+      if (client.status === 'ready') return Promise.resolve(true);
+      return new Promise((resolve) => {
+        const done = (ok: boolean) => {
+          clearTimeout(timer);
+          client.off('ready', onReady);
+          resolve(ok);
+        };
+        const onReady = () => done(true);
+        const timer = setTimeout(() => done(client.status === 'ready'), timeoutMs);
+        client.on('ready', onReady);
+      });
+    },
+    getString: (key) => guard('GET', () => client.get(key)),
+    getBuffer: (key) => guard('GET', () => client.getBuffer(key)),
+    getBuffers,
+    async getStrings(keys) {
+      return (await getBuffers(keys)).map((b) => b?.toString() ?? null);
+    },
+    setMany: (entries: readonly CacheEntry[], ttlMs?: number) =>
+      guard('SET', async () => {
+        for (const part of chunks(entries, WRITE_WINDOW)) {
+          await Promise.all(part.map(([k, v]) => (ttlMs ? client.set(k, v, 'PX', ttlMs) : client.set(k, v))));
+        }
+      }),
+    countExisting: (keys) =>
+      guard('EXISTS', async () => {
+        const counts = await Promise.all(groups(keys).map((idx) => client.exists(idx.map((i) => keys[i]!))));
+        return counts.reduce((a, b) => a + b, 0);
+      }),
+    persistMany: (keys) => guard('PERSIST', () => windowed(keys, (k) => client.persist(k))),
+    expireMany: (keys, seconds) =>
+      guard('EXPIRE', async () => {
+        await windowed(keys, (k) => client.expire(k, seconds));
+      }),
+    incr: (key) => guard('INCR', () => client.incr(key)),
+    swap: (key, value) =>
+      guard('SET GET', async () => (await client.call('SET', key, value, 'GET')) as string | null),
+    deleteMany: (keys) =>
+      guard('DEL', async () => {
+        await windowed(keys, (k) => client.del(k));
+      }),
+    async close() {
+      if (client.status === 'ready') await client.quit().catch(() => client.disconnect());
+      else client.disconnect();
+    },
+  };
+}

@@ -1,0 +1,151 @@
+import Fastify, { type FastifyInstance } from 'fastify';
+import { z } from 'zod';
+import type { Config } from '../config/config.js';
+import { ConfigError, LarderError } from '../db/errors.js';
+import { createMetrics, type ServeMetrics } from './metrics.js';
+import type { Reader } from './reader.js';
+import { createTokenCheck } from './token-check.js';
+
+const SET_RE = /^[a-z][a-z0-9_]{0,62}$/;
+const id = (what: string) =>
+  z
+    .string({ error: `${what} is required` })
+    .min(1, `${what} must not be empty`)
+    .max(64, `${what} is longer than 64 characters`)
+    .regex(/^[^\p{Cc}]+$/u, `${what} must not contain control characters`);
+const day = z.string().regex(/^\d{4}-\d{2}-\d{2}$/, 'a day YYYY-MM-DD');
+
+export const setParamsSchema = z.object({
+  set: z.string().regex(SET_RE, 'a set name matching ^[a-z][a-z0-9_]{0,62}$'),
+});
+export const featureQuerySchema = z.strictObject({
+  item: id('item'),
+  store: id('store'),
+  day: day.optional(),
+});
+export type FeatureQuery = z.infer<typeof featureQuerySchema>;
+export const batchBodySchema = z.strictObject({
+  series: z.array(z.strictObject({ item: id('item'), store: id('store'), day: day.optional() })).min(1),
+  /** `error`: an unknown series fails the batch (404); `null`: its result is null. */
+  unknown: z.enum(['error', 'null']).default('error'),
+});
+export type BatchBody = z.infer<typeof batchBodySchema>;
+
+export interface ServerOptions {
+  readonly reader: Reader;
+  readonly config: Config;
+  readonly metrics?: ServeMetrics;
+  /** pino level for the server's log (default `warn`: a line per request costs latency). */
+  readonly logLevel?: string;
+}
+
+const STATUS: Record<string, number> = {
+  BAD_REQUEST: 400,
+  USAGE: 400,
+  UNKNOWN_SET: 404,
+  UNKNOWN_SERIES: 404,
+  UNAVAILABLE: 503,
+};
+
+/** Maps an error to a status and a message that never carries a stack trace or SQL. */
+function httpError(err: unknown): { status: number; code: string; message: string } {
+  if (err instanceof z.ZodError) {
+    const message = err.issues
+      .map((i) => `${i.path.length ? i.path.join('.') : 'request'}: ${i.message}`)
+      .slice(0, 5)
+      .join('; ');
+    return { status: 400, code: 'BAD_REQUEST', message };
+  }
+  if (err instanceof LarderError && STATUS[err.code]) {
+    return { status: STATUS[err.code]!, code: err.code, message: err.message };
+  }
+  const e = err as { statusCode?: unknown; code?: unknown; message?: unknown };
+  // Fastify's own client errors (malformed JSON, body too large, wrong content type).
+  if (typeof e?.statusCode === 'number' && e.statusCode >= 400 && e.statusCode < 500) {
+    return { status: e.statusCode, code: 'BAD_REQUEST', message: String(e.message).slice(0, 200) };
+  }
+  return { status: 500, code: 'INTERNAL', message: 'internal error (see the server log)' };
+}
+
+/**
+ * The feature service: JSON over HTTP with bearer-token auth on everything but `/health`.
+ *   GET  /health                         open; cache state
+ *   GET  /metrics                        Prometheus text
+ *   GET  /v1/sets/:set                   what the set serves (version, cutoff, columns)
+ *   GET  /v1/sets/:set/features?item=&store=[&day=]
+ *   POST /v1/sets/:set/features/batch    { series: [{ item, store, day? }], unknown? }
+ */
+export function buildServer(opts: ServerOptions): FastifyInstance {
+  const { reader, config } = opts;
+  const tokens = config.serve.tokens;
+  if (tokens.length === 0) {
+    throw new ConfigError('serve: no tokens configured: set serve.tokens in the config or LARDER_TOKENS');
+  }
+  const metrics = opts.metrics ?? createMetrics();
+  const authorized = createTokenCheck(tokens);
+  const limit = config.serve.batchLimit;
+  const app = Fastify({
+    logger: { level: opts.logLevel ?? 'warn' },
+    // Room for a full batch of long ids; anything bigger is refused by Fastify with 413.
+    bodyLimit: Math.max(1 << 20, limit * 512),
+    disableRequestLogging: true,
+  });
+  const started = new WeakMap<object, bigint>();
+
+  app.addHook('onRequest', async (req, reply) => {
+    started.set(req, process.hrtime.bigint());
+    if (req.url === '/health' || req.url.startsWith('/health?')) return;
+    if (!authorized(req.headers.authorization)) {
+      metrics.errors.inc({ code: 'UNAUTHORIZED' });
+      return reply.code(401).header('www-authenticate', 'Bearer').send({
+        error: 'UNAUTHORIZED',
+        message: 'a valid bearer token is required (Authorization: Bearer <token>)',
+      });
+    }
+  });
+  app.addHook('onResponse', async (req, reply) => {
+    const route = req.routeOptions.url ?? 'unmatched';
+    metrics.requests.inc({ route, method: req.method, status: String(reply.statusCode) });
+    const t0 = started.get(req);
+    if (t0 !== undefined) metrics.latency.observe({ route }, Number(process.hrtime.bigint() - t0) / 1e9);
+  });
+  app.setErrorHandler((err, req, reply) => {
+    const h = httpError(err);
+    metrics.errors.inc({ code: h.code });
+    if (h.status >= 500) req.log.error({ err }, 'request failed');
+    return reply.code(h.status).send({ error: h.code, message: h.message });
+  });
+  app.setNotFoundHandler((req, reply) =>
+    reply.code(404).send({ error: 'NOT_FOUND', message: `no route ${req.method} ${req.url.split('?')[0]}` }),
+  );
+
+  app.get('/health', async () => ({ status: 'ok', cache: reader.cacheReady() ? 'ready' : 'unavailable' }));
+  app.get('/metrics', async (_req, reply) => {
+    reply.header('content-type', metrics.registry.contentType);
+    return metrics.registry.metrics();
+  });
+  app.get('/v1/sets/:set', async (req) => {
+    const { set } = setParamsSchema.parse(req.params);
+    return reader.describe(set);
+  });
+  app.get('/v1/sets/:set/features', async (req) => {
+    const { set } = setParamsSchema.parse(req.params);
+    const q = featureQuerySchema.parse(req.query);
+    return reader.get({ set, item: q.item, store: q.store, day: q.day });
+  });
+  app.post('/v1/sets/:set/features/batch', async (req) => {
+    const { set } = setParamsSchema.parse(req.params);
+    const series = (req.body as { series?: unknown } | null)?.series;
+    // Refuse an oversized batch before validating each of its entries.
+    if (Array.isArray(series) && series.length > limit) {
+      throw new LarderError('BAD_REQUEST', `batch of ${series.length} series is over the limit of ${limit}`);
+    }
+    const body = batchBodySchema.parse(req.body);
+    const results = await reader.getMany(
+      body.series.map((s) => ({ set, item: s.item, store: s.store, day: s.day })),
+      { unknown: body.unknown },
+    );
+    return { results };
+  });
+  return app;
+}
