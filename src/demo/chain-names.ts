@@ -1,0 +1,318 @@
+/**
+ * Names and shape of the demo chain, an invented grocery chain ("Larder Provisions"). Every name
+ * here is made up; the numbers give each category its own demand character.
+ */
+
+export const REGION_NAMES = ['northvale', 'southmere', 'eastbrook', 'westfold'] as const;
+
+export const TOWN_NAMES = [
+  'brackenby',
+  'fernhollow',
+  'millcross',
+  'wrenfield',
+  'larchmouth',
+  'quillbury',
+  'ambercombe',
+  'thornwick',
+  'marrowgate',
+  'pebbleton',
+  'rookhaven',
+  'saltmere',
+  'hazelford',
+  'copperdell',
+  'wyndle',
+  'ostergill',
+] as const;
+
+export type WeeklyShape = 'weekend' | 'saturday' | 'flat' | 'midweek';
+
+/** Demand character of a category: base rate, weekly and yearly shape, prices, sensitivities. */
+export interface CategoryTraits {
+  readonly id: string;
+  readonly dept: string;
+  /** Median units per day in an average store at the regular price. */
+  readonly rate: number;
+  /** Gamma-Poisson shape range: smaller is burstier. */
+  readonly shape: readonly [number, number];
+  readonly weekly: WeeklyShape;
+  /** Yearly amplitude (share of the mean) and the day of year of the peak. */
+  readonly yearlyAmp: number;
+  readonly yearlyPeak: number;
+  /** Regular price range. */
+  readonly price: readonly [number, number];
+  /** Price elasticity range (positive: demand falls as price rises). */
+  readonly elasticity: readonly [number, number];
+  /** Extra demand on benefit days in the store's region. */
+  readonly benefitLift: number;
+  readonly nouns: readonly string[];
+}
+
+const C = (t: CategoryTraits) => t;
+
+export const CATEGORIES: readonly CategoryTraits[] = [
+  C({
+    id: 'fresh-produce',
+    dept: 'fresh',
+    rate: 4,
+    shape: [2, 6],
+    weekly: 'saturday',
+    yearlyAmp: 0.12,
+    yearlyPeak: 200,
+    price: [0.6, 4],
+    elasticity: [1.2, 2],
+    benefitLift: 0.22,
+    nouns: ['pears', 'leeks', 'plums', 'turnips', 'kale', 'radishes', 'apples', 'beets'],
+  }),
+  C({
+    id: 'fresh-bakery',
+    dept: 'fresh',
+    rate: 3,
+    shape: [2, 5],
+    weekly: 'weekend',
+    yearlyAmp: 0.05,
+    yearlyPeak: 350,
+    price: [0.9, 5],
+    elasticity: [1.2, 2.2],
+    benefitLift: 0.2,
+    nouns: ['rye loaf', 'seed roll', 'oat bun', 'honey twist', 'barley cob', 'fruit scone'],
+  }),
+  C({
+    id: 'fresh-dairy',
+    dept: 'fresh',
+    rate: 3.5,
+    shape: [2, 6],
+    weekly: 'flat',
+    yearlyAmp: 0.05,
+    yearlyPeak: 20,
+    price: [0.7, 6],
+    elasticity: [1.1, 1.8],
+    benefitLift: 0.25,
+    nouns: ['milk', 'curd', 'butter', 'soft cheese', 'yoghurt', 'cream'],
+  }),
+  C({
+    id: 'fresh-deli',
+    dept: 'fresh',
+    rate: 1.2,
+    shape: [1, 3],
+    weekly: 'weekend',
+    yearlyAmp: 0.1,
+    yearlyPeak: 355,
+    price: [2, 9],
+    elasticity: [1.5, 2.6],
+    benefitLift: 0.1,
+    nouns: ['pie', 'pasty', 'olive mix', 'smoked ham', 'pickled herring', 'terrine'],
+  }),
+  C({
+    id: 'pantry-grains',
+    dept: 'pantry',
+    rate: 1.5,
+    shape: [1, 3],
+    weekly: 'saturday',
+    yearlyAmp: 0.05,
+    yearlyPeak: 30,
+    price: [0.8, 4],
+    elasticity: [1.5, 2.8],
+    benefitLift: 0.3,
+    nouns: ['oats', 'rice', 'barley', 'spelt', 'noodles', 'flour'],
+  }),
+  C({
+    id: 'pantry-tins',
+    dept: 'pantry',
+    rate: 1,
+    shape: [0.8, 2.5],
+    weekly: 'flat',
+    yearlyAmp: 0.1,
+    yearlyPeak: 15,
+    price: [0.5, 3],
+    elasticity: [1.6, 3],
+    benefitLift: 0.3,
+    nouns: ['beans', 'tomatoes', 'soup', 'sardines', 'chickpeas', 'peaches'],
+  }),
+  C({
+    id: 'pantry-breakfast',
+    dept: 'pantry',
+    rate: 1.2,
+    shape: [1, 3],
+    weekly: 'saturday',
+    yearlyAmp: 0.04,
+    yearlyPeak: 40,
+    price: [1.5, 5],
+    elasticity: [1.5, 2.5],
+    benefitLift: 0.2,
+    nouns: ['muesli', 'flakes', 'granola', 'honey', 'jam', 'porridge'],
+  }),
+  C({
+    id: 'pantry-snacks',
+    dept: 'pantry',
+    rate: 2,
+    shape: [1, 3],
+    weekly: 'weekend',
+    yearlyAmp: 0.08,
+    yearlyPeak: 180,
+    price: [0.8, 3.5],
+    elasticity: [1.8, 3],
+    benefitLift: 0.1,
+    nouns: ['crisps', 'pretzels', 'oat bars', 'nut mix', 'crackers', 'toffee'],
+  }),
+  C({
+    id: 'pantry-spices',
+    dept: 'pantry',
+    rate: 0.25,
+    shape: [0.4, 1.2],
+    weekly: 'flat',
+    yearlyAmp: 0.1,
+    yearlyPeak: 340,
+    price: [1, 4],
+    elasticity: [0.8, 1.6],
+    benefitLift: 0.05,
+    nouns: ['pepper', 'cumin', 'nutmeg', 'paprika', 'thyme', 'sea salt'],
+  }),
+  C({
+    id: 'drinks-hot',
+    dept: 'drinks',
+    rate: 1,
+    shape: [1, 3],
+    weekly: 'flat',
+    yearlyAmp: 0.25,
+    yearlyPeak: 15,
+    price: [2, 7],
+    elasticity: [1.4, 2.4],
+    benefitLift: 0.1,
+    nouns: ['black tea', 'green tea', 'ground coffee', 'cocoa', 'herbal tea'],
+  }),
+  C({
+    id: 'drinks-soft',
+    dept: 'drinks',
+    rate: 2.5,
+    shape: [1, 4],
+    weekly: 'weekend',
+    yearlyAmp: 0.3,
+    yearlyPeak: 200,
+    price: [0.7, 3],
+    elasticity: [1.8, 3],
+    benefitLift: 0.08,
+    nouns: ['lemonade', 'ginger fizz', 'cola', 'tonic', 'cherry soda'],
+  }),
+  C({
+    id: 'drinks-juice',
+    dept: 'drinks',
+    rate: 1.2,
+    shape: [1, 3],
+    weekly: 'saturday',
+    yearlyAmp: 0.12,
+    yearlyPeak: 190,
+    price: [1, 4],
+    elasticity: [1.5, 2.5],
+    benefitLift: 0.1,
+    nouns: ['apple juice', 'orange juice', 'berry nectar', 'carrot juice'],
+  }),
+  C({
+    id: 'frozen-meals',
+    dept: 'frozen',
+    rate: 0.8,
+    shape: [0.8, 2],
+    weekly: 'midweek',
+    yearlyAmp: 0.15,
+    yearlyPeak: 20,
+    price: [2, 7],
+    elasticity: [1.6, 2.8],
+    benefitLift: 0.12,
+    nouns: ['lasagne', 'fish pie', 'curry', 'dumplings', 'stew'],
+  }),
+  C({
+    id: 'frozen-ice-cream',
+    dept: 'frozen',
+    rate: 0.9,
+    shape: [0.6, 2],
+    weekly: 'weekend',
+    yearlyAmp: 0.45,
+    yearlyPeak: 205,
+    price: [1.5, 6],
+    elasticity: [1.8, 3],
+    benefitLift: 0.05,
+    nouns: ['vanilla tub', 'lolly', 'sorbet', 'cone', 'choc bar'],
+  }),
+  C({
+    id: 'home-cleaning',
+    dept: 'home-care',
+    rate: 0.5,
+    shape: [0.6, 1.6],
+    weekly: 'saturday',
+    yearlyAmp: 0.08,
+    yearlyPeak: 100,
+    price: [1, 6],
+    elasticity: [1.4, 2.6],
+    benefitLift: 0.08,
+    nouns: ['spray', 'scourer', 'floor wash', 'glass polish', 'sponges'],
+  }),
+  C({
+    id: 'home-paper',
+    dept: 'home-care',
+    rate: 0.7,
+    shape: [0.6, 1.8],
+    weekly: 'saturday',
+    yearlyAmp: 0.04,
+    yearlyPeak: 350,
+    price: [1.5, 8],
+    elasticity: [1.6, 2.8],
+    benefitLift: 0.15,
+    nouns: ['kitchen roll', 'tissues', 'napkins', 'foil'],
+  }),
+  C({
+    id: 'care-bath',
+    dept: 'personal-care',
+    rate: 0.35,
+    shape: [0.5, 1.4],
+    weekly: 'flat',
+    yearlyAmp: 0.06,
+    yearlyPeak: 180,
+    price: [1, 7],
+    elasticity: [1.2, 2.4],
+    benefitLift: 0.05,
+    nouns: ['soap bar', 'bath salts', 'body wash', 'loofah'],
+  }),
+  C({
+    id: 'care-dental',
+    dept: 'personal-care',
+    rate: 0.3,
+    shape: [0.5, 1.4],
+    weekly: 'flat',
+    yearlyAmp: 0.03,
+    yearlyPeak: 60,
+    price: [1, 5],
+    elasticity: [1.2, 2.2],
+    benefitLift: 0.05,
+    nouns: ['toothpaste', 'floss', 'mouth rinse', 'toothbrush'],
+  }),
+];
+
+export const ADJECTIVES = [
+  'golden',
+  'hearty',
+  'little',
+  'farmhouse',
+  'crisp',
+  'mild',
+  'zesty',
+  'classic',
+  'wild',
+  'smoky',
+  'orchard',
+  'meadow',
+  'harbour',
+  'hillside',
+  'sunny',
+  'frosty',
+  'rustic',
+  'tangy',
+  'velvet',
+  'bright',
+] as const;
+
+/** Day-of-week demand multipliers indexed by ISO weekday - 1 (Monday first). */
+export const WEEKLY_SHAPES: Readonly<Record<WeeklyShape, readonly number[]>> = {
+  weekend: [0.82, 0.8, 0.85, 0.92, 1.08, 1.35, 1.18],
+  saturday: [0.9, 0.86, 0.9, 0.95, 1.05, 1.3, 1.04],
+  flat: [1, 0.96, 0.97, 1, 1.03, 1.06, 0.98],
+  midweek: [1.08, 1.1, 1.08, 1.02, 0.95, 0.9, 0.87],
+};
