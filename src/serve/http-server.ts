@@ -35,7 +35,7 @@ export interface ServerOptions {
   readonly reader: Reader;
   readonly config: Config;
   readonly metrics?: ServeMetrics;
-  /** pino level for the server's log (default `warn`: a line per request costs latency). */
+  /** pino level for the server's log (default `warn`: request lines are `info`, and cost latency). */
   readonly logLevel?: string;
 }
 
@@ -88,7 +88,6 @@ export function buildServer(opts: ServerOptions): FastifyInstance {
     logger: { level: opts.logLevel ?? 'warn' },
     // Room for a full batch of long ids; anything bigger is refused by Fastify with 413.
     bodyLimit: Math.max(1 << 20, limit * 512),
-    disableRequestLogging: true,
   });
   const started = new WeakMap<object, bigint>();
 

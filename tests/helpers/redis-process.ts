@@ -26,6 +26,7 @@ function ping(port: number): boolean {
     return execFileSync('redis-cli', ['-p', String(port), 'ping'], {
       encoding: 'utf8',
       timeout: 2000,
+      stdio: ['ignore', 'pipe', 'ignore'],
     }).includes('PONG');
   } catch {
     return false;
