@@ -113,10 +113,19 @@ export interface RunEnd {
   readonly message?: string | undefined;
 }
 
-export async function finishRun(db: DbSession, runId: number, end: RunEnd): Promise<void> {
+/**
+ * Records how an attempt ended. Fenced by the attempt number: a process that lost its lock and
+ * finishes late cannot overwrite the attempt of the process that took the run over.
+ */
+export async function finishRun(
+  db: DbSession,
+  run: Pick<RunRecord, 'runId' | 'attempt'>,
+  end: RunEnd,
+): Promise<void> {
   await db.query(
-    `UPDATE runs SET status = $2, finished_at = now(), error_code = $3, error = $4, message = $5 WHERE run_id = $1`,
-    [runId, end.status, end.errorCode ?? null, end.error ?? null, end.message ?? null],
+    `UPDATE runs SET status = $3, finished_at = now(), error_code = $4, error = $5, message = $6
+     WHERE run_id = $1 AND attempt = $2`,
+    [run.runId, run.attempt, end.status, end.errorCode ?? null, end.error ?? null, end.message ?? null],
   );
 }
 
@@ -206,15 +215,6 @@ export async function listSteps(db: DbSession, runId: number): Promise<StepRecor
     [runId],
   );
   return res.rows;
-}
-
-/** The newest outcome of each step of a run: what a resume skips and where it starts. */
-export async function latestSteps(db: DbSession, runId: number): Promise<Map<number, StepRecord>> {
-  const res = await db.query<StepRecord>(
-    `SELECT DISTINCT ON (seq) ${STEP_COLUMNS} FROM run_steps WHERE run_id = $1 ORDER BY seq, attempt DESC`,
-    [runId],
-  );
-  return new Map(res.rows.map((s) => [s.seq, s]));
 }
 
 /** The newest run over exactly these sets and this cutoff. */
