@@ -2,3 +2,8 @@
 export { defineConfig, loadConfig, type Config, type ConfigInput } from './config/config.js';
 export { openDatabase } from './db/open.js';
 export type { Db, DbSession } from './db/database.js';
+export { createReader, type Reader, type ReaderOptions } from './serve/reader.js';
+export type { FeatureRead, FeatureRow, ReadRequest, SeriesBatch, SetInfo } from './serve/read-types.js';
+export { publishSnapshot, type PublishOptions, type PublishResult } from './publish/publish-snapshot.js';
+export { openCache } from './publish/open-cache.js';
+export type { FeatureCache } from './publish/feature-cache.js';
