@@ -53,13 +53,18 @@ export function zeroProbability(mu: number, s2: number): number {
 export function criticalRunLength(p0: number, alpha: number): number {
   if (!(p0 < 1) || !(p0 >= 0)) return Number.POSITIVE_INFINITY;
   if (p0 === 0) return 1;
-  return Math.max(1, Math.ceil(Math.log(alpha) / Math.log(p0)));
+  // The epsilon keeps a ratio that is an integer in exact arithmetic from rounding up a step.
+  return Math.max(1, Math.ceil(Math.log(alpha) / Math.log(p0) - 1e-9));
 }
 
 /**
  * Classifies every run of zeros in `units`, a dense daily array of one series (index = day
  * offset, NaN = no row that day). Runs still open at the last index are `open`; zeros before
- * the first positive sale are `pre-launch`; neither is a stock-out.
+ * the first positive sale are `pre-launch`; neither is a stock-out. Days before the first sale
+ * never count as history: a launch would otherwise read as a low rate.
+ *
+ * One pass with a sliding window of running sums, O(n) per series whatever the number of runs
+ * (slow sellers have hundreds).
  */
 export function classifyZeroRuns(
   units: ArrayLike<number>,
@@ -75,6 +80,14 @@ export function classifyZeroRuns(
       break;
     }
   }
+  // Window [lo, hi) of history days; a day counts when sold-era, stored and not in a flagged run.
+  let lo = 0;
+  let hi = 0;
+  let cnt = 0;
+  let sum = 0;
+  let sumSq = 0;
+  const counts = (j: number) => j >= firstSale && !flagged[j] && !Number.isNaN(units[j] as number);
+
   let i = 0;
   while (i < n) {
     if (units[i] !== 0) {
@@ -89,15 +102,19 @@ export function classifyZeroRuns(
       runs.push({ ...base, kind: 'pre-launch', kStar: Number.POSITIVE_INFINITY, detectable: -1 });
       continue;
     }
-    let cnt = 0;
-    let sum = 0;
-    let sumSq = 0;
-    for (let j = Math.max(0, start - params.lookback); j < start; j++) {
-      const v = units[j] as number;
-      if (Number.isNaN(v) || flagged[j]) continue;
+    for (; hi < start; hi++) {
+      if (!counts(hi)) continue;
+      const v = units[hi] as number;
       cnt++;
       sum += v;
       sumSq += v * v;
+    }
+    for (; lo < start - params.lookback; lo++) {
+      if (!counts(lo)) continue;
+      const v = units[lo] as number;
+      cnt--;
+      sum -= v;
+      sumSq -= v * v;
     }
     const open = end === n - 1;
     if (cnt < params.minHistory) {
@@ -110,13 +127,15 @@ export function classifyZeroRuns(
       continue;
     }
     const mean = sum / cnt;
-    const variance = cnt > 1 ? (sumSq - cnt * mean * mean) / (cnt - 1) : 0;
+    // Sample variance; sums of integer units are exact in doubles, so no drift from sliding.
+    const variance = cnt > 1 ? Math.max(0, (sumSq - (sum * sum) / cnt) / (cnt - 1)) : 0;
     const p0 = zeroProbability(mean, variance);
     const kStar = criticalRunLength(p0, params.alpha);
     const len = end - start + 1;
     const reached = len >= kStar;
     const detectable = reached ? start + kStar - 1 : -1;
     const kind: ZeroRunKind = open ? 'open' : reached ? 'stockout' : 'plausible';
+    // Flagged before the window reaches these days, so they never enter later runs' history.
     if (kind === 'stockout') flagged.fill(1, start, end + 1);
     runs.push({ start, end, mean, variance, p0, kStar, detectable, kind });
   }

@@ -4,10 +4,8 @@ import { z } from 'zod';
  * Config sections owned by later pipeline stages. Each stage validates its own section in depth
  * (check parameters by the check registry, feature sets by the build); here they are only shaped.
  */
-export const checksSectionSchema = z
-  .record(z.string(), z.record(z.string(), z.unknown()))
-  .default({})
-  .describe('per-check settings: { "<check-name>": { enabled, severity, ...parameters } }');
+/** The checks' section (one entry per check, validated by its parameter schema): src/checks/checks-config.ts. */
+export { checksConfigSchema as checksSectionSchema } from '../checks/checks-config.js';
 
 export const setsSectionSchema = z.array(z.unknown()).default([]).describe('feature sets');
 

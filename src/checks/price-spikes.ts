@@ -1,0 +1,165 @@
+import type { z } from 'zod';
+import { formatDay } from '../core/days.js';
+import { checkParams, defineCheck, intAtLeast, positiveNumber } from './check-definition.js';
+import type { FindingDraft } from './finding.js';
+import type { PricePassResult } from './price-pass.js';
+import { MODIFIED_Z_FACTOR, medianAndMad } from './robust-stats.js';
+import { soldWeeks } from './sold-weeks.js';
+
+export const priceSpikesParams = checkParams(
+  ['price-spike', 'non-positive-price', 'week-misaligned', 'missing-price'],
+  {
+    /** Modified z-score limit (Iglewicz and Hoaglin 1993 recommend 3.5). */
+    threshold: positiveNumber(3.5),
+    /** Trailing weeks forming the baseline (issue 3: 13, a retail quarter). */
+    historyWeeks: intAtLeast(1, 13),
+    /**
+     * Below this many baseline weeks only the ratio rule applies: a z-score on two or three
+     * prices is too unstable to judge (common practice).
+     */
+    minHistoryWeeks: intAtLeast(1, 4),
+    /** Ratio limit used when MAD is 0 (or the history is short): flag p/median > ratio or < 1/ratio. */
+    ratio: positiveNumber(3),
+  },
+);
+export type PriceSpikesParams = z.output<typeof priceSpikesParams>;
+
+// Kept here rather than imported from the config module, which imports the check registry.
+const WEEKDAY_NAMES = ['sunday', 'monday', 'tuesday', 'wednesday', 'thursday', 'friday', 'saturday'] as const;
+
+export type SpikeRule = 'modified-z' | 'ratio';
+
+/**
+ * Judges one week's price against its baseline prices: the modified z-score
+ * 0.6745 |p - median| / MAD against `threshold` when MAD > 0 and the baseline is long enough,
+ * else p / median against [1/ratio, ratio]. Returns null when not a spike.
+ */
+export function judgePrice(
+  price: number,
+  baseline: ArrayLike<number>,
+  n: number,
+  p: Pick<PriceSpikesParams, 'threshold' | 'minHistoryWeeks' | 'ratio'>,
+  scratch: Float64Array,
+): { rule: SpikeRule; observed: number; median: number; mad: number } | null {
+  if (n === 0) return null;
+  const { median, mad } = medianAndMad(baseline, n, scratch);
+  if (mad > 0 && n >= p.minHistoryWeeks) {
+    const z = (MODIFIED_Z_FACTOR * Math.abs(price - median)) / mad;
+    return z > p.threshold ? { rule: 'modified-z', observed: z, median, mad } : null;
+  }
+  const r = price / median;
+  return r > p.ratio || r < 1 / p.ratio ? { rule: 'ratio', observed: r, median, mad } : null;
+}
+
+/** Weekly price spikes against the trailing 13 weeks, non-positive prices, misaligned weeks, and sold weeks without a price. */
+export const priceSpikes = defineCheck({
+  name: 'price-spikes',
+  description:
+    'price weeks far from the trailing 13-week median (modified z > 3.5, or outside [1/3, 3] when MAD is 0)',
+  codes: {
+    'price-spike': {
+      severity: 'warn',
+      meaning: 'a week whose price is far from the item-store trailing median',
+    },
+    'non-positive-price': { severity: 'block', meaning: 'a price of zero or below' },
+    'week-misaligned': {
+      severity: 'block',
+      meaning: 'price rows whose week_start is not the retail week first day',
+    },
+    'missing-price': { severity: 'warn', meaning: 'weeks with sales but no price row' },
+  },
+  params: priceSpikesParams,
+  reads: ['prices', 'sales'],
+  async run(_db, ctx) {
+    const p = ctx.params;
+    const drafts: FindingDraft[] = [];
+    const span = p.historyWeeks * 7;
+    // Sized by days, not weeks: misaligned rows can put more than one price in a week.
+    const base = new Float64Array(span + 1);
+    const scratch = new Float64Array(span + 1);
+    const weekday = WEEKDAY_NAMES[ctx.weekStartsOn]!;
+    const priced: PricePassResult = await ctx.prices({
+      prices(g) {
+        const keys = { seriesId: g.seriesId, itemId: g.itemId, storeId: g.storeId };
+        let misaligned = 0;
+        let firstBad = -1;
+        let lo = 0;
+        for (let k = 0; k < g.n; k++) {
+          const w = g.weeks[k]!;
+          const price = g.prices[k]!;
+          if (ctx.weekStart(w) !== w) {
+            misaligned++;
+            if (firstBad < 0) firstBad = w;
+          }
+          if (!(price > 0)) {
+            drafts.push({
+              code: 'non-positive-price',
+              ...keys,
+              weekStart: w,
+              firstDay: w,
+              lastDay: w + 6,
+              observed: price,
+              threshold: 0,
+              rank: -price,
+              details: { price },
+              message: `price ${price} in the week of ${formatDay(w)}`,
+            });
+            continue;
+          }
+          while (g.weeks[lo]! < w - span) lo++;
+          let n = 0;
+          for (let j = lo; j < k; j++) if (g.prices[j]! > 0) base[n++] = g.prices[j]!;
+          const spike = judgePrice(price, base, n, p, scratch);
+          if (!spike) continue;
+          const ratio = price / spike.median;
+          drafts.push({
+            code: 'price-spike',
+            ...keys,
+            weekStart: w,
+            firstDay: w,
+            lastDay: w + 6,
+            observed: spike.observed,
+            threshold: spike.rule === 'modified-z' ? p.threshold : p.ratio,
+            rank: Math.abs(Math.log(ratio)),
+            details: { price, median: spike.median, mad: spike.mad, ratio, history_weeks: n },
+            message:
+              spike.rule === 'modified-z'
+                ? `price ${price} in the week of ${formatDay(w)} against a ${n}-week median of ${spike.median} (modified z ${spike.observed.toFixed(1)})`
+                : `price ${price} in the week of ${formatDay(w)} is ${ratio.toFixed(2)}x the ${n}-week median of ${spike.median}`,
+          });
+        }
+        if (misaligned > 0) {
+          drafts.push({
+            code: 'week-misaligned',
+            ...keys,
+            firstDay: firstBad,
+            lastDay: firstBad,
+            observed: misaligned,
+            threshold: 0,
+            rank: misaligned,
+            details: { weeks: misaligned, weekday },
+            message: `${misaligned} price row(s) with a week_start that is not a ${weekday} (first ${formatDay(firstBad)})`,
+          });
+        }
+      },
+    });
+    await ctx.sales({
+      series(s) {
+        const c = soldWeeks(s, priced.pricedWeeks.get(s.seriesId), ctx.weekStart);
+        if (c.unpriced === 0) return;
+        drafts.push({
+          code: 'missing-price',
+          seriesId: s.seriesId,
+          firstDay: c.firstUnpriced,
+          lastDay: c.lastUnpriced + 6,
+          observed: c.unpriced,
+          threshold: 0,
+          rank: c.unpriced,
+          details: { weeks: c.unpriced, sold_weeks: c.sold },
+          message: `${c.unpriced} of ${c.sold} sold week(s) have no price (first ${formatDay(c.firstUnpriced)}, last ${formatDay(c.lastUnpriced)})`,
+        });
+      },
+    });
+    await ctx.write(drafts);
+  },
+});

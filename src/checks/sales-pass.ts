@@ -1,0 +1,155 @@
+import { formatDay } from '../core/days.js';
+import { readCopyBinary } from '../db/binary-copy.js';
+import type { DbSession } from '../db/database.js';
+import type { Guarded } from './shared-pass.js';
+
+/**
+ * One series as the sales pass hands it to visitors: a dense daily array from the series' first
+ * stored day to its last, NaN where no row exists. The arrays are reused for the next series, so
+ * a visitor must copy whatever it keeps.
+ */
+export interface SeriesView {
+  readonly seriesId: number;
+  /** Epoch day of index 0. */
+  readonly firstDay: number;
+  /** Units per day; NaN = no row that day. Length = last stored day - firstDay + 1. */
+  readonly units: Float64Array;
+  /** Stored rows of the series. */
+  readonly rows: number;
+}
+
+export interface SeriesVisitor {
+  series(s: SeriesView): void;
+}
+
+/** Chain-wide totals per day between the first and the last stored day. */
+export interface DailyTotals {
+  readonly firstDay: number;
+  readonly units: Float64Array;
+  readonly rows: Int32Array;
+}
+
+export interface SalesPassResult {
+  /** Epoch days of the oldest and newest stored day (null: no rows up to the cutoff). */
+  readonly firstDay: number | null;
+  readonly lastDay: number | null;
+  readonly rows: number;
+  readonly series: number;
+  readonly daily: DailyTotals;
+}
+
+/** The ordered read every sales-based check shares; the cutoff is an epoch day, inlined as a date literal. */
+export function salesCopySql(cutoff: number | null): string {
+  const where = cutoff === null ? '' : ` WHERE day <= DATE '${formatDay(cutoff)}'`;
+  return `COPY (SELECT series_id, day, units FROM sales${where} ORDER BY series_id, day) TO STDOUT (FORMAT binary)`;
+}
+
+/** Grows in both directions so daily totals need no first pass to find the day range. */
+class DayAccumulator {
+  base = 0;
+  units = new Float64Array(0);
+  rows = new Int32Array(0);
+  min = Number.POSITIVE_INFINITY;
+  max = Number.NEGATIVE_INFINITY;
+
+  add(day: number, units: number): void {
+    let i = day - this.base;
+    if (i < 0 || i >= this.units.length) {
+      this.grow(day);
+      i = day - this.base;
+    }
+    this.units[i]! += units;
+    this.rows[i]!++;
+    if (day < this.min) this.min = day;
+    if (day > this.max) this.max = day;
+  }
+
+  private grow(day: number): void {
+    const lo = Math.min(this.units.length ? this.base : day, day) - 512;
+    const hi = Math.max(this.units.length ? this.base + this.units.length : day + 1, day + 1) + 512;
+    const units = new Float64Array(hi - lo);
+    const rows = new Int32Array(hi - lo);
+    if (this.units.length) {
+      units.set(this.units, this.base - lo);
+      rows.set(this.rows, this.base - lo);
+    }
+    this.base = lo;
+    this.units = units;
+    this.rows = rows;
+  }
+
+  result(): DailyTotals {
+    if (this.max < this.min) return { firstDay: 0, units: new Float64Array(0), rows: new Int32Array(0) };
+    const a = this.min - this.base;
+    const b = this.max - this.base + 1;
+    return { firstDay: this.min, units: this.units.slice(a, b), rows: this.rows.slice(a, b) };
+  }
+}
+
+/**
+ * Streams the sales table once in (series_id, day) order by binary COPY, assembling each series
+ * into a dense array for the visitors and adding every row to the chain's daily totals.
+ */
+export async function runSalesPass(
+  db: DbSession,
+  cutoff: number | null,
+  visitors: ReadonlyArray<Guarded<SeriesVisitor>>,
+): Promise<SalesPassResult> {
+  const totals = new DayAccumulator();
+  let days = new Int32Array(4096);
+  let units = new Int32Array(4096);
+  let n = 0;
+  let current = -1;
+  let dense = new Float64Array(4096);
+  let rows = 0;
+  let series = 0;
+
+  const emit = () => {
+    if (n === 0) return;
+    series++;
+    const first = days[0]!;
+    const len = days[n - 1]! - first + 1;
+    if (dense.length < len) dense = new Float64Array(Math.max(len, dense.length * 2));
+    const view = dense.subarray(0, len);
+    view.fill(Number.NaN);
+    for (let i = 0; i < n; i++) view[days[i]! - first] = units[i]!;
+    const s: SeriesView = { seriesId: current, firstDay: first, units: view, rows: n };
+    for (const v of visitors) v.call((x) => x.series(s));
+  };
+
+  for await (const batch of readCopyBinary(db.copyTo(salesCopySql(cutoff)), ['int4', 'date', 'int4'])) {
+    const sid = batch.columns[0] as Int32Array;
+    const day = batch.columns[1] as Int32Array;
+    const u = batch.columns[2] as Int32Array;
+    rows += batch.length;
+    for (let i = 0; i < batch.length; i++) {
+      const s = sid[i]!;
+      if (s !== current) {
+        emit();
+        current = s;
+        n = 0;
+      }
+      if (n === days.length) {
+        const d2 = new Int32Array(n * 2);
+        d2.set(days);
+        days = d2;
+        const u2 = new Int32Array(n * 2);
+        u2.set(units);
+        units = u2;
+      }
+      days[n] = day[i]!;
+      units[n] = u[i]!;
+      n++;
+      totals.add(day[i]!, u[i]!);
+    }
+  }
+  emit();
+  const daily = totals.result();
+  return {
+    firstDay: rows ? totals.min : null,
+    lastDay: rows ? totals.max : null,
+    rows,
+    series,
+    daily,
+  };
+}
