@@ -46,6 +46,10 @@ export function openPgDatabase(url: string, schema: string, poolSize = 4): Db {
   pool.on('error', () => {});
   const withClient = async <T>(fn: (c: pg.PoolClient) => Promise<T>): Promise<T> => {
     const client = await pool.connect();
+    // A checked-out client whose backend dies (pg_terminate_backend, a restart) emits 'error';
+    // the pool listens only on idle clients, so without this the process would crash instead of
+    // seeing the failure as the rejection of the query in flight.
+    client.on('error', ignoreError);
     let broken = false;
     try {
       return await fn(client);
@@ -53,6 +57,7 @@ export function openPgDatabase(url: string, schema: string, poolSize = 4): Db {
       broken = isConnectionLoss(err);
       throw err;
     } finally {
+      client.off('error', ignoreError);
       client.release(broken);
     }
   };
@@ -66,9 +71,11 @@ export function openPgDatabase(url: string, schema: string, poolSize = 4): Db {
     copyTo(sql) {
       return (async function* () {
         const client = await pool.connect();
+        client.on('error', ignoreError);
         try {
           yield* sessionOn(client).copyTo(sql);
         } finally {
+          client.off('error', ignoreError);
           client.release();
         }
       })();
@@ -89,6 +96,8 @@ export function openPgDatabase(url: string, schema: string, poolSize = 4): Db {
     close: () => pool.end(),
   };
 }
+
+const ignoreError = () => {};
 
 function isConnectionLoss(err: unknown): boolean {
   const code = (err as { code?: unknown } | null)?.code;
