@@ -39,6 +39,22 @@ export const SNAPSHOTS_DDL = `CREATE TABLE IF NOT EXISTS snapshots (
   predict_rows int8 NOT NULL, built_at timestamptz NOT NULL DEFAULT now(), timings jsonb,
   UNIQUE (set_name, cutoff))`;
 
+/** The catalogue columns docs/contracts.md names, less the generated id and the defaulted time. */
+const CONTRACT_COLUMNS = [
+  'set_name',
+  'cutoff',
+  'definition_hash',
+  'data_fingerprint',
+  'table_name',
+  'mode',
+  'horizon',
+  'columns',
+  'row_count',
+  'train_rows',
+  'predict_rows',
+  'timings',
+];
+
 function rng(seed: number) {
   let s = seed >>> 0 || 1;
   return () => {
@@ -114,24 +130,50 @@ export async function createSnapshotFixture(db: Db, o: FixtureOptions = {}): Pro
   }
   parts.push(...w.end());
   await db.copyFrom(`COPY ${q} FROM STDIN (FORMAT binary)`, parts);
+  // The build's migration may add columns beyond the contract; give any required one a value
+  // of its type so the hand-made row fits whichever catalogue is in place.
+  const extra = (
+    await db.query<{ name: string; type: string }>(
+      `SELECT column_name AS name, data_type AS type FROM information_schema.columns
+       WHERE table_schema = current_schema() AND table_name = 'snapshots' AND is_nullable = 'NO'
+         AND column_default IS NULL AND is_identity = 'NO' AND NOT (column_name = ANY($1))`,
+      [CONTRACT_COLUMNS],
+    )
+  ).rows;
+  const firstTrain = formatDay(c - trainDays + 1);
+  const filler = (type: string): unknown =>
+    type === 'jsonb' || type === 'json'
+      ? '{}'
+      : type === 'date'
+        ? firstTrain
+        : type === 'boolean'
+          ? false
+          : /int|numeric|double|real/.test(type)
+            ? 0
+            : type.startsWith('timestamp')
+              ? new Date().toISOString()
+              : '';
+  const values: unknown[] = [
+    set,
+    cutoff,
+    `fixture-${F}x${H}`,
+    `fixture-${o.seed ?? 7}`,
+    tableName,
+    'shift',
+    H,
+    JSON.stringify(columns.map((name) => ({ name, type: 'float8', family: 'fixture', description: name }))),
+    series.length * (H + trainDays),
+    series.length * trainDays,
+    series.length * H,
+    '{}',
+    ...extra.map((e) => filler(e.type)),
+  ];
+  const names = [...CONTRACT_COLUMNS, ...extra.map((e) => e.name)];
+  await db.query(`DELETE FROM snapshots WHERE set_name = $1 AND cutoff = $2::date`, [set, cutoff]);
   await db.query(
-    `INSERT INTO snapshots (set_name, cutoff, definition_hash, data_fingerprint, table_name, mode, horizon, columns,
-       row_count, train_rows, predict_rows, timings)
-     VALUES ($1, $2::date, $3, $4, $5, 'shift', $6, $7::jsonb, $8, $9, $10, '{}'::jsonb)
-     ON CONFLICT (set_name, cutoff) DO UPDATE SET table_name = EXCLUDED.table_name, columns = EXCLUDED.columns,
-       horizon = EXCLUDED.horizon, predict_rows = EXCLUDED.predict_rows, definition_hash = EXCLUDED.definition_hash`,
-    [
-      set,
-      cutoff,
-      `fixture-${F}x${H}`,
-      `fixture-${o.seed ?? 7}`,
-      tableName,
-      H,
-      JSON.stringify(columns.map((name) => ({ name, type: 'float8', family: 'fixture', description: name }))),
-      series.length * (H + trainDays),
-      series.length * trainDays,
-      series.length * H,
-    ],
+    `INSERT INTO snapshots (${names.map(quoteIdent).join(', ')})
+     VALUES (${values.map((_, k) => `$${k + 1}`).join(', ')})`,
+    values,
   );
   return { set, cutoff, horizon: H, columns, tableName, series };
 }
