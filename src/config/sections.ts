@@ -1,4 +1,5 @@
 import { z } from 'zod';
+import { featureSetListSchema } from '../features/feature-set.js';
 
 /**
  * Config sections owned by later pipeline stages. Each stage validates its own section in depth
@@ -7,7 +8,7 @@ import { z } from 'zod';
 /** The checks' section (one entry per check, validated by its parameter schema): src/checks/checks-config.ts. */
 export { checksConfigSchema as checksSectionSchema } from '../checks/checks-config.js';
 
-export const setsSectionSchema = z.array(z.unknown()).default([]).describe('feature sets');
+export const setsSectionSchema = featureSetListSchema.describe('feature sets');
 
 export const serveSectionSchema = z
   .object({

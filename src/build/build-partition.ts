@@ -1,0 +1,270 @@
+import type { Config } from '../config/config.js';
+import { parseDay } from '../core/days.js';
+import { CopyBinaryWriter } from '../db/binary-copy.js';
+import { type Db, type DbSession, quoteIdent } from '../db/database.js';
+import { LarderError, UsageError } from '../db/errors.js';
+import { calendarTable } from '../features/calendar.js';
+import type { GroupSeries, PartitionEnv, SeriesInput } from '../features/family.js';
+import type { ResolvedFeatureSet } from '../features/feature-set.js';
+import type { GroupLevel } from '../features/group-levels.js';
+import { stockoutMask } from '../features/stockout-mask.js';
+import { type BuildPlan, planFeatureSet } from './build-plan.js';
+import { readStagedGroups } from './group-stage.js';
+import {
+  type PartitionSeries,
+  readCalendarInputs,
+  readDepartments,
+  readPartitionPrices,
+  readPartitionSales,
+  readPartitionSeries,
+  storeGroups,
+} from './partition-input.js';
+import { type RowLayout, seriesRows, trainingOrigins } from './series-rows.js';
+
+export interface PartitionResult {
+  readonly partition: string;
+  readonly rowCount: number;
+  readonly trainRows: number;
+  readonly predictRows: number;
+  readonly inputRows: number;
+  readonly timings: {
+    readonly readMs: number;
+    readonly computeMs: number;
+    readonly writeMs: number;
+    readonly totalMs: number;
+  };
+}
+
+export interface PartitionOptions {
+  /** Tests and the audit only: accept a plan of an unsafe (deliberately leaky) set. */
+  readonly allowUnsafe?: boolean;
+}
+
+const day = (s: string) => parseDay(s)!;
+
+/** Everything one partition's computation needs, read from the database. */
+interface PartitionData {
+  readonly series: PartitionSeries[];
+  readonly base: number;
+  readonly env: PartitionEnv;
+  readonly inputRows: number;
+}
+
+async function readPartition(
+  s: DbSession,
+  plan: BuildPlan,
+  set: ResolvedFeatureSet,
+  store: string,
+): Promise<PartitionData> {
+  const C = day(plan.cutoff);
+  const series = await readPartitionSeries(s, store, C);
+  const base =
+    plan.salesFrom !== null ? day(plan.salesFrom) : series.reduce((m, x) => Math.min(m, x.firstDay), C);
+  const inputRows = await readPartitionSales(s, store, series, base, C);
+  const groupFrom = day(plan.groupFrom);
+  const groups = storeGroups(series, plan.storeLevels, base, groupFrom, C) as Map<
+    GroupLevel,
+    Map<string, GroupSeries>
+  >;
+  if (plan.groupTable && plan.chainLevels.length) {
+    const wanted = new Map<GroupLevel, Set<string>>();
+    for (const level of plan.chainLevels) {
+      const keys = new Set<string>();
+      for (const x of series) if (x.keys[level] !== null) keys.add(x.keys[level]!);
+      wanted.set(level, keys);
+    }
+    await readStagedGroups(s, plan.groupTable, wanted, groupFrom, C, groups);
+  }
+  const needs = set.families.map((f) => f.family.needs(f.params, set.shape));
+  let prices: PartitionEnv['prices'] = null;
+  let deptPrices: PartitionEnv['deptPrices'] = null;
+  let departmentOf: PartitionEnv['departmentOf'] = null;
+  if (needs.some((n) => n.prices)) {
+    departmentOf = await readDepartments(s);
+    const p = await readPartitionPrices(s, store, day(plan.priceBoundary), departmentOf);
+    prices = p.prices;
+    deptPrices = p.deptPrices;
+  }
+  const anchorLo = day(plan.anchorLo);
+  const anchorHi = day(plan.anchorHi);
+  let calendar: PartitionEnv['calendar'] = null;
+  if (needs.some((n) => n.calendar)) {
+    const regionId = series[0]?.hierarchy.regionId ?? null;
+    const { events, benefit } = await readCalendarInputs(s, regionId);
+    const kinds = set.definition.families.calendar?.eventKinds ?? [];
+    calendar = calendarTable(anchorLo - 1, C + set.shape.horizon, events, benefit, plan.codes, kinds);
+  }
+  const env: PartitionEnv = {
+    cutoff: C,
+    priceBoundary: day(plan.priceBoundary),
+    weekStart: set.weekStart,
+    anchorLo,
+    anchorHi,
+    calendar,
+    prices,
+    deptPrices,
+    departmentOf,
+    group: (level, key) => (key === null ? null : (groups.get(level)?.get(key) ?? null)),
+    cache: new Map(),
+  };
+  return { series, base, env, inputRows };
+}
+
+/** Streams the partition's snapshot rows as binary COPY chunks, series by series. */
+async function* snapshotRows(
+  plan: BuildPlan,
+  set: ResolvedFeatureSet,
+  data: PartitionData,
+  counts: { rows: number; train: number; computeMs: number },
+): AsyncGenerator<Uint8Array> {
+  const C = day(plan.cutoff);
+  const layout: RowLayout = {
+    mode: set.shape.mode,
+    cutoff: C,
+    horizon: set.shape.horizon,
+    from: day(plan.from),
+    origins:
+      set.shape.mode === 'origin'
+        ? trainingOrigins(C, day(plan.from), set.definition.originEvery)
+        : new Int32Array(0),
+  };
+  const F = set.columns.length;
+  const w = new CopyBinaryWriter();
+  for (const x of data.series) {
+    const t0 = performance.now();
+    const rows = seriesRows(layout, data.base, x.units);
+    const mask = set.stockout ? stockoutMask(data.base, x.units, C, set.stockout) : null;
+    const input: SeriesInput = {
+      seriesId: x.seriesId,
+      cutoff: C,
+      base: data.base,
+      units: x.units,
+      maskFrom: mask?.maskFrom ?? null,
+      maskEvents: mask?.events ?? null,
+      rows,
+      keys: x.keys,
+      itemId: x.hierarchy.itemId,
+    };
+    const cols: Float64Array[] = [];
+    for (const f of set.families) {
+      const out = f.columns.map(() => new Float64Array(rows.n));
+      f.family.compute(f.params, set.shape, input, data.env, out);
+      cols.push(...out);
+    }
+    const origin = rows.origin;
+    for (let r = 0; r < rows.n; r++) {
+      w.row(5 + F);
+      w.int4(x.seriesId);
+      w.date(rows.day[r]!);
+      if (origin) w.date(origin[r]!);
+      else w.null();
+      const predict = rows.isPredict[r] === 1;
+      w.bool(predict);
+      if (predict) w.null();
+      else w.int4(rows.label[r]!);
+      for (let c = 0; c < F; c++) w.float8(cols[c]![r]!);
+    }
+    counts.rows += rows.n;
+    counts.train += rows.trainRows;
+    // Free the series' input once written; a store's rows are otherwise all held to the end.
+    x.units = new Float64Array(0);
+    counts.computeMs += performance.now() - t0;
+    for (const chunk of w.take()) yield chunk;
+  }
+  for (const chunk of w.end()) yield chunk;
+}
+
+/**
+ * Builds one partition (a store) into the plan's staging table, in one transaction together
+ * with its completion record. Idempotent: a partition that already completed has its rows
+ * replaced; one whose worker died mid-way left nothing (its transaction rolled back).
+ */
+export async function buildPartition(
+  db: Db,
+  _config: Config,
+  plan: BuildPlan,
+  partition: string,
+  opts: PartitionOptions = {},
+): Promise<PartitionResult> {
+  if (!plan.partitions.includes(partition))
+    throw new UsageError(`partition '${partition}' is not part of this build`);
+  if (plan.unsafe && !opts.allowUnsafe)
+    throw new LarderError('UNSAFE_PLAN', 'this plan builds an unvalidated feature set');
+  const set = planFeatureSet(plan);
+  if (set.definitionHash !== plan.definitionHash) {
+    throw new LarderError(
+      'PLAN_MISMATCH',
+      `the feature code gives definition hash ${set.definitionHash}, the plan ${plan.definitionHash}: replan the build`,
+    );
+  }
+  const table = quoteIdent(plan.stagingTable);
+  const t0 = performance.now();
+  return db.transaction(async (tx) => {
+    await tx.query('SELECT pg_advisory_xact_lock(hashtext($1))', [
+      `larder.build.part.${plan.stagingTable}.${partition}`,
+    ]);
+    const build = await tx.query(
+      'SELECT 1 FROM snapshot_builds WHERE table_name = $1 AND finished_at IS NULL FOR SHARE',
+      [plan.stagingTable],
+    );
+    if (build.rows.length === 0) {
+      throw new LarderError('BUILD_GONE', `build ${plan.stagingTable} is finished, aborted or superseded`);
+    }
+    const done = await tx.query(
+      'SELECT 1 FROM snapshot_build_parts WHERE table_name = $1 AND partition = $2',
+      [plan.stagingTable, partition],
+    );
+    if (done.rows.length) {
+      await tx.query(
+        `DELETE FROM ${table} WHERE series_id IN (SELECT series_id FROM series WHERE store_id = $1)`,
+        [partition],
+      );
+      await tx.query('DELETE FROM snapshot_build_parts WHERE table_name = $1 AND partition = $2', [
+        plan.stagingTable,
+        partition,
+      ]);
+    }
+    const data = await readPartition(tx, plan, set, partition);
+    const readMs = performance.now() - t0;
+    const counts = { rows: 0, train: 0, computeMs: 0 };
+    const t1 = performance.now();
+    const copied = await tx.copyFrom(
+      `COPY ${table} FROM STDIN (FORMAT binary)`,
+      snapshotRows(plan, set, data, counts),
+    );
+    const copyMs = performance.now() - t1;
+    if (copied !== counts.rows) {
+      throw new LarderError(
+        'COPY_COUNT',
+        `partition ${partition}: wrote ${counts.rows} rows, the server stored ${copied}`,
+      );
+    }
+    const timings = {
+      readMs: Math.round(readMs),
+      computeMs: Math.round(counts.computeMs),
+      writeMs: Math.round(copyMs - counts.computeMs),
+      totalMs: Math.round(performance.now() - t0),
+    };
+    const result: PartitionResult = {
+      partition,
+      rowCount: counts.rows,
+      trainRows: counts.train,
+      predictRows: counts.rows - counts.train,
+      inputRows: data.inputRows,
+      timings,
+    };
+    await tx.query(
+      `INSERT INTO snapshot_build_parts (table_name, partition, row_count, train_rows, predict_rows, timings)
+       VALUES ($1, $2, $3, $4, $5, $6)`,
+      [
+        plan.stagingTable,
+        partition,
+        result.rowCount,
+        result.trainRows,
+        result.predictRows,
+        JSON.stringify(timings),
+      ],
+    );
+    return result;
+  });
+}

@@ -1,0 +1,57 @@
+import { createHash } from 'node:crypto';
+import type { DbSession } from '../db/database.js';
+import { canonicalJson } from '../features/feature-set.js';
+import { dayLiteral } from './sql-text.js';
+
+/** Count and order-independent checksum of one raw table's rows inside the build's boundaries. */
+export interface FingerprintPart {
+  readonly rows: number;
+  readonly checksum: string;
+}
+
+export interface DataFingerprint {
+  readonly fingerprint: string;
+  readonly parts: Readonly<Record<string, FingerprintPart>>;
+}
+
+// Each row hashes to an int8 (PostgreSQL's own hash functions); the sum of the hashes (numeric,
+// so it cannot overflow) is independent of row order and changes with any changed row.
+const SEP = `E'\\x1f'`;
+function statements(cutoff: number, priceBoundary: number): Record<string, string> {
+  const c = dayLiteral(cutoff);
+  const pb = dayLiteral(priceBoundary);
+  return {
+    sales: `SELECT count(*)::int8 AS n, coalesce(sum(hashint8extended(series_id::int8 * 100000 + (day - DATE '1970-01-01'), units)), 0)::text AS h FROM sales WHERE day <= ${c}`,
+    prices: `SELECT count(*)::int8 AS n, coalesce(sum(hashtextextended(item_id || ${SEP} || store_id || ${SEP} || week_start::text || ${SEP} || price::text, 0)), 0)::text AS h FROM prices WHERE week_start <= ${pb}`,
+    calendar_days: `SELECT count(*)::int8 AS n, coalesce(sum(hashint8extended((day - DATE '1970-01-01')::int8, 0)), 0)::text AS h FROM calendar_days`,
+    events: `SELECT count(*)::int8 AS n, coalesce(sum(hashtextextended(day::text || ${SEP} || name || ${SEP} || kind, 0)), 0)::text AS h FROM events`,
+    benefit_days: `SELECT count(*)::int8 AS n, coalesce(sum(hashtextextended(region_id || ${SEP} || day::text, 0)), 0)::text AS h FROM benefit_days`,
+    items: `SELECT count(*)::int8 AS n, coalesce(sum(hashtextextended(item_id || ${SEP} || coalesce(dept_id, '') || ${SEP} || coalesce(category_id, ''), 0)), 0)::text AS h FROM items`,
+    stores: `SELECT count(*)::int8 AS n, coalesce(sum(hashtextextended(store_id || ${SEP} || coalesce(region_id, ''), 0)), 0)::text AS h FROM stores`,
+    series: `SELECT count(*)::int8 AS n, coalesce(sum(hashtextextended(series_id::text || ${SEP} || item_id || ${SEP} || store_id, 0)), 0)::text AS h FROM series`,
+  };
+}
+
+/**
+ * The data fingerprint of a build: counts and checksums of the raw rows it may see (sales up
+ * to the cutoff, prices up to the price boundary, the whole calendar, events, benefit days and
+ * hierarchy), all set-based. `sessions` run the statements side by side (one each at most).
+ */
+export async function dataFingerprint(
+  run: <T>(fn: (s: DbSession) => Promise<T>) => Promise<T>,
+  cutoff: number,
+  priceBoundary: number,
+): Promise<DataFingerprint> {
+  const entries = Object.entries(statements(cutoff, priceBoundary));
+  const results = await Promise.all(
+    entries.map(([name, sql]) =>
+      run(async (s) => {
+        const r = (await s.query<{ n: number; h: string }>(sql)).rows[0]!;
+        return [name, { rows: Number(r.n), checksum: r.h }] as const;
+      }),
+    ),
+  );
+  const parts = Object.fromEntries(results);
+  const fingerprint = createHash('sha256').update(canonicalJson(parts)).digest('hex');
+  return { fingerprint, parts };
+}

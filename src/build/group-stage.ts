@@ -1,0 +1,128 @@
+import { readCopyBinary } from '../db/binary-copy.js';
+import { type DbSession, quoteIdent } from '../db/database.js';
+import type { GroupSeries } from '../features/family.js';
+import { type GroupLevel, KEY_SEP, LEVELS } from '../features/group-levels.js';
+import { dayLiteral, quoteLiteral, textArrayLiteral } from './sql-text.js';
+
+/** Levels in the order they are staged: finer first, so coarser ones sum the finer totals. */
+const STAGE_ORDER: readonly GroupLevel[] = [
+  'item_region',
+  'item',
+  'region',
+  'department',
+  'category',
+  'total',
+];
+
+/** Chain-wide levels a set needs staged (store levels are summed inside each partition). */
+export function chainLevels(levels: Iterable<GroupLevel>): GroupLevel[] {
+  const want = new Set([...levels].filter((l) => LEVELS[l].scope === 'chain'));
+  return STAGE_ORDER.filter((l) => want.has(l));
+}
+
+// Key columns of a level when read from raw tables: series r, items i, stores st.
+const RAW_KEYS: Record<string, { k1: string; k2: string }> = {
+  item_region: { k1: 'r.item_id', k2: 'st.region_id' },
+  item: { k1: 'r.item_id', k2: 'NULL::text' },
+  region: { k1: 'st.region_id', k2: 'NULL::text' },
+  department: { k1: 'i.dept_id', k2: 'NULL::text' },
+  category: { k1: 'i.category_id', k2: 'NULL::text' },
+  total: { k1: "''::text", k2: 'NULL::text' },
+};
+
+/** How a staged finer level maps to this one's key (g = the finer level's staged rows). */
+const DERIVE: Record<string, Record<string, { k1: string; join: string }>> = {
+  item: { item_region: { k1: 'g.k1', join: '' } },
+  region: { item_region: { k1: 'g.k2', join: '' } },
+  department: { item: { k1: 'i.dept_id', join: 'LEFT JOIN items i ON i.item_id = g.k1' } },
+  category: { item: { k1: 'i.category_id', join: 'LEFT JOIN items i ON i.item_id = g.k1' } },
+  total: { region: { k1: "''::text", join: '' }, category: { k1: "''::text", join: '' } },
+};
+
+/**
+ * Statements that stage the daily totals of each chain level over days from..cutoff into
+ * `table` (level, k1, k2, day, total, n): one GROUP BY per level, over sales for the finest
+ * level and over an already staged finer level for the others.
+ */
+export function stageGroupStatements(
+  table: string,
+  levels: readonly GroupLevel[],
+  from: number,
+  cutoff: number,
+): string[] {
+  const t = quoteIdent(table);
+  const out = [
+    `CREATE UNLOGGED TABLE ${t} (level text NOT NULL, k1 text, k2 text, day date NOT NULL, total float8 NOT NULL, n int4 NOT NULL)`,
+  ];
+  const staged: GroupLevel[] = [];
+  for (const level of levels) {
+    const src = LEVELS[level].from.find((f) => staged.includes(f));
+    if (src) {
+      const d = DERIVE[level]![src]!;
+      out.push(
+        `INSERT INTO ${t} SELECT ${quoteLiteral(level)}, ${d.k1}, NULL, g.day, sum(g.total), sum(g.n)::int4 FROM ${t} g ${d.join} WHERE g.level = ${quoteLiteral(src)} GROUP BY 2, g.day`,
+      );
+    } else {
+      const k = RAW_KEYS[level]!;
+      out.push(
+        `INSERT INTO ${t} SELECT ${quoteLiteral(level)}, ${k.k1}, ${k.k2}, s.day, sum(s.units), count(*)::int4
+         FROM sales s JOIN series r ON r.series_id = s.series_id
+         LEFT JOIN items i ON i.item_id = r.item_id LEFT JOIN stores st ON st.store_id = r.store_id
+         WHERE s.day BETWEEN ${dayLiteral(from)} AND ${dayLiteral(cutoff)} GROUP BY 2, 3, s.day`,
+      );
+    }
+    staged.push(level);
+  }
+  out.push(`CREATE INDEX ON ${t} (level, k1)`);
+  return out;
+}
+
+/** Dense daily totals of groups, keyed by level and group key. */
+export type GroupMap = Map<GroupLevel, Map<string, GroupSeries>>;
+
+/**
+ * Reads the staged totals of the given groups (keys as in `groupKey`) into dense arrays over
+ * days base..cutoff. One COPY per level, filtered to the keys the partition needs.
+ */
+export async function readStagedGroups(
+  s: DbSession,
+  table: string,
+  wanted: ReadonlyMap<GroupLevel, ReadonlySet<string>>,
+  base: number,
+  cutoff: number,
+  into: GroupMap,
+): Promise<void> {
+  const len = cutoff - base + 1;
+  for (const [level, keys] of wanted) {
+    if (keys.size === 0) continue;
+    const k1s = new Set([...keys].map((k) => k.split(KEY_SEP)[0]!));
+    const sql = `COPY (SELECT k1, k2, day, total, n FROM ${quoteIdent(table)} WHERE level = ${quoteLiteral(level)}
+      AND k1 = ANY(${textArrayLiteral(k1s)}) AND day >= ${dayLiteral(base)} ORDER BY k1, k2, day) TO STDOUT (FORMAT binary)`;
+    const byKey = into.get(level) ?? new Map<string, GroupSeries>();
+    into.set(level, byKey);
+    let curKey: string | null = null;
+    let cur: GroupSeries | null = null;
+    for await (const b of readCopyBinary(s.copyTo(sql), ['text', 'text', 'date', 'float8', 'int4'])) {
+      const k1 = b.columns[0] as string[];
+      const k2 = b.columns[1] as string[];
+      const k2null = b.nulls[1]!;
+      const day = b.columns[2] as Int32Array;
+      const total = b.columns[3] as Float64Array;
+      const n = b.columns[4] as Int32Array;
+      for (let r = 0; r < b.length; r++) {
+        const key = k2null[r] ? k1[r]! : `${k1[r]}${KEY_SEP}${k2[r]}`;
+        if (key !== curKey) {
+          curKey = key;
+          cur = keys.has(key) ? { base, total: new Float64Array(len), n: new Float64Array(len) } : null;
+          if (cur) byKey.set(key, cur);
+        }
+        if (!cur) continue;
+        const i = day[r]! - base;
+        if (i >= 0 && i < len) {
+          (cur.total as Float64Array)[i] = total[r]!;
+          (cur.n as Float64Array)[i] = n[r]!;
+        }
+      }
+    }
+  }
+}

@@ -1,0 +1,221 @@
+import { formatDay, parseDay } from '../core/days.js';
+import { readCopyBinary } from '../db/binary-copy.js';
+import type { DbSession } from '../db/database.js';
+import type { CalendarEvent } from '../features/calendar.js';
+import type { GroupSeries, ItemPrices } from '../features/family.js';
+import { type GroupLevel, groupKeys, type SeriesHierarchy } from '../features/group-levels.js';
+import { dayLiteral, quoteLiteral } from './sql-text.js';
+
+/** One series of a partition: its hierarchy and dense daily units from the partition's base. */
+export interface PartitionSeries {
+  readonly seriesId: number;
+  readonly hierarchy: SeriesHierarchy;
+  readonly keys: Record<GroupLevel, string | null>;
+  readonly firstDay: number;
+  units: Float64Array;
+}
+
+/**
+ * The store's series that exist as of the cutoff (a sales row on or before it), in series
+ * order. A series first sold after the cutoff is unknown to a build as of that cutoff.
+ */
+export async function readPartitionSeries(
+  s: DbSession,
+  store: string,
+  cutoff: number,
+): Promise<PartitionSeries[]> {
+  const rows = (
+    await s.query<{
+      series_id: number;
+      item_id: string;
+      store_id: string;
+      dept_id: string | null;
+      category_id: string | null;
+      region_id: string | null;
+      first_day: string;
+    }>(
+      `SELECT r.series_id, r.item_id, r.store_id, i.dept_id, i.category_id, st.region_id, f.first_day
+       FROM series r
+       LEFT JOIN items i ON i.item_id = r.item_id
+       LEFT JOIN stores st ON st.store_id = r.store_id
+       CROSS JOIN LATERAL (SELECT min(day) AS first_day FROM sales x WHERE x.series_id = r.series_id) f
+       WHERE r.store_id = $1 AND f.first_day <= $2
+       ORDER BY r.series_id`,
+      [store, formatDay(cutoff)],
+    )
+  ).rows;
+  return rows.map((r) => {
+    const hierarchy: SeriesHierarchy = {
+      itemId: r.item_id,
+      storeId: r.store_id,
+      deptId: r.dept_id,
+      categoryId: r.category_id,
+      regionId: r.region_id,
+    };
+    return {
+      seriesId: r.series_id,
+      hierarchy,
+      keys: groupKeys(hierarchy),
+      firstDay: parseDay(r.first_day)!,
+      units: new Float64Array(0),
+    };
+  });
+}
+
+/**
+ * Reads the store's sales for days base..cutoff in series order with one binary COPY and fills
+ * each series' dense `units` (NaN where there is no row).
+ */
+export async function readPartitionSales(
+  s: DbSession,
+  store: string,
+  series: readonly PartitionSeries[],
+  base: number,
+  cutoff: number,
+): Promise<number> {
+  const len = cutoff - base + 1;
+  const index = new Map<number, PartitionSeries>();
+  for (const x of series) {
+    x.units = new Float64Array(len).fill(Number.NaN);
+    index.set(x.seriesId, x);
+  }
+  const sql = `COPY (SELECT s.series_id, s.day, s.units FROM sales s
+      WHERE s.series_id IN (SELECT series_id FROM series WHERE store_id = ${quoteLiteral(store)})
+        AND s.day BETWEEN ${dayLiteral(base)} AND ${dayLiteral(cutoff)}
+      ORDER BY s.series_id, s.day) TO STDOUT (FORMAT binary)`;
+  let rows = 0;
+  let cur: PartitionSeries | undefined;
+  let curId = -1;
+  for await (const b of readCopyBinary(s.copyTo(sql), ['int4', 'date', 'int4'])) {
+    const ids = b.columns[0] as Int32Array;
+    const days = b.columns[1] as Int32Array;
+    const units = b.columns[2] as Int32Array;
+    for (let r = 0; r < b.length; r++) {
+      const id = ids[r]!;
+      if (id !== curId) {
+        curId = id;
+        cur = index.get(id);
+      }
+      if (cur) cur.units[days[r]! - base] = units[r]!;
+    }
+    rows += b.length;
+  }
+  return rows;
+}
+
+/** Daily totals of the store-level groups, summed from the partition's own series. */
+export function storeGroups(
+  series: readonly PartitionSeries[],
+  levels: readonly GroupLevel[],
+  salesBase: number,
+  groupBase: number,
+  cutoff: number,
+): Map<GroupLevel, Map<string, GroupSeries>> {
+  const out = new Map<GroupLevel, Map<string, GroupSeries>>();
+  const len = cutoff - groupBase + 1;
+  for (const level of levels) {
+    const byKey = new Map<string, GroupSeries>();
+    out.set(level, byKey);
+    for (const x of series) {
+      const key = x.keys[level];
+      if (key === null) continue;
+      let g = byKey.get(key);
+      if (!g) {
+        g = { base: groupBase, total: new Float64Array(len), n: new Float64Array(len) };
+        byKey.set(key, g);
+      }
+      const total = g.total as Float64Array;
+      const n = g.n as Float64Array;
+      const off = groupBase - salesBase;
+      for (let i = 0; i < len; i++) {
+        const v = x.units[i + off];
+        if (v === undefined || Number.isNaN(v)) continue;
+        total[i]! += v;
+        n[i]! += 1;
+      }
+    }
+  }
+  return out;
+}
+
+/** Weekly prices of the store's items up to the price boundary, plus department price counts. */
+export async function readPartitionPrices(
+  s: DbSession,
+  store: string,
+  priceBoundary: number,
+  departmentOf: ReadonlyMap<string, string | null>,
+): Promise<{
+  prices: Map<string, ItemPrices>;
+  deptPrices: Map<string, Map<number, Map<number, number>>>;
+}> {
+  const sql = `COPY (SELECT item_id, week_start, price::float8 FROM prices
+      WHERE store_id = ${quoteLiteral(store)} AND week_start <= ${dayLiteral(priceBoundary)}
+      ORDER BY item_id, week_start) TO STDOUT (FORMAT binary)`;
+  const prices = new Map<string, ItemPrices>();
+  const deptPrices = new Map<string, Map<number, Map<number, number>>>();
+  let curItem: string | null = null;
+  let weeks: number[] = [];
+  let values: number[] = [];
+  const flush = () => {
+    if (curItem !== null)
+      prices.set(curItem, { weeks: Int32Array.from(weeks), prices: Float64Array.from(values) });
+    weeks = [];
+    values = [];
+  };
+  for await (const b of readCopyBinary(s.copyTo(sql), ['text', 'date', 'float8'])) {
+    const items = b.columns[0] as string[];
+    const wk = b.columns[1] as Int32Array;
+    const pr = b.columns[2] as Float64Array;
+    for (let r = 0; r < b.length; r++) {
+      const item = items[r]!;
+      if (item !== curItem) {
+        flush();
+        curItem = item;
+      }
+      weeks.push(wk[r]!);
+      values.push(pr[r]!);
+      const dept = departmentOf.get(item);
+      if (dept === undefined || dept === null) continue;
+      let byWeek = deptPrices.get(dept);
+      if (!byWeek) {
+        byWeek = new Map();
+        deptPrices.set(dept, byWeek);
+      }
+      let counts = byWeek.get(wk[r]!);
+      if (!counts) {
+        counts = new Map();
+        byWeek.set(wk[r]!, counts);
+      }
+      counts.set(pr[r]!, (counts.get(pr[r]!) ?? 0) + 1);
+    }
+  }
+  flush();
+  return { prices, deptPrices };
+}
+
+/** Departments of every item (for the store's price comparisons). */
+export async function readDepartments(s: DbSession): Promise<Map<string, string | null>> {
+  const rows = (
+    await s.query<{ item_id: string; dept_id: string | null }>('SELECT item_id, dept_id FROM items')
+  ).rows;
+  return new Map(rows.map((r) => [r.item_id, r.dept_id]));
+}
+
+/** Every event (known ahead) and the benefit days of one region. */
+export async function readCalendarInputs(
+  s: DbSession,
+  regionId: string | null,
+): Promise<{ events: CalendarEvent[]; benefit: Set<number> }> {
+  const ev = (
+    await s.query<{ day: string; name: string; kind: string }>('SELECT day, name, kind FROM events')
+  ).rows;
+  const bd =
+    regionId === null
+      ? []
+      : (await s.query<{ day: string }>('SELECT day FROM benefit_days WHERE region_id = $1', [regionId]))
+          .rows;
+  return {
+    events: ev.map((e) => ({ day: parseDay(e.day)!, name: e.name, kind: e.kind })),
+    benefit: new Set(bd.map((r) => parseDay(r.day)!)),
+  };
+}

@@ -1,0 +1,97 @@
+import type { BuildMode, RowSet } from '../features/family.js';
+
+/** How rows are laid out for every series of a build. */
+export interface RowLayout {
+  readonly mode: BuildMode;
+  readonly cutoff: number;
+  readonly horizon: number;
+  /** Shift mode: the first training day. */
+  readonly from: number;
+  /** Origin mode: training origins, ascending, all before the cutoff (the cutoff is the prediction origin). */
+  readonly origins: Int32Array;
+}
+
+/** The rows of one series with their keys and labels. */
+export interface SeriesRows extends RowSet {
+  readonly origin: Int32Array | null;
+  readonly isPredict: Uint8Array;
+  /** Units at t for training rows; NaN for prediction rows. */
+  readonly label: Float64Array;
+  readonly trainRows: number;
+}
+
+/** Training origins o = C - k * every (k >= 1) with o >= from, ascending. */
+export function trainingOrigins(cutoff: number, from: number, every: number): Int32Array {
+  const out: number[] = [];
+  for (let o = cutoff - every; o >= from; o -= every) out.push(o);
+  return Int32Array.from(out.reverse());
+}
+
+/**
+ * Rows of one series in (origin, day) order. Training rows are the days with a sales row (the
+ * label is known); prediction rows are always exactly H: C+1 .. C+H (origin mode: origin C).
+ * `units` is dense from `base`, NaN where there is no row.
+ */
+export function seriesRows(layout: RowLayout, base: number, units: Float64Array): SeriesRows {
+  const { cutoff: C, horizon: H } = layout;
+  const has = (t: number) => {
+    const i = t - base;
+    return i >= 0 && i < units.length && !Number.isNaN(units[i]!);
+  };
+  const at = (t: number) => units[t - base]!;
+  const day: number[] = [];
+  const anchor: number[] = [];
+  const limit: number[] = [];
+  const origin: number[] = [];
+  const label: number[] = [];
+  let train = 0;
+  if (layout.mode === 'shift') {
+    for (let t = layout.from; t <= C; t++) {
+      if (!has(t)) continue;
+      day.push(t);
+      label.push(at(t));
+      train++;
+    }
+    for (let t = C + 1; t <= C + H; t++) {
+      day.push(t);
+      label.push(Number.NaN);
+    }
+    for (const t of day) {
+      anchor.push(t);
+      limit.push(C);
+    }
+  } else {
+    for (const o of layout.origins) {
+      for (let h = 1; h <= H && o + h <= C; h++) {
+        const t = o + h;
+        if (!has(t)) continue;
+        day.push(t);
+        origin.push(o);
+        label.push(at(t));
+        train++;
+      }
+    }
+    for (let h = 1; h <= H; h++) {
+      day.push(C + h);
+      origin.push(C);
+      label.push(Number.NaN);
+    }
+    for (const o of origin) {
+      anchor.push(o + 1);
+      limit.push(o);
+    }
+  }
+  const n = day.length;
+  const isPredict = new Uint8Array(n);
+  isPredict.fill(1, train);
+  return {
+    n,
+    day: Int32Array.from(day),
+    anchor: Int32Array.from(anchor),
+    limit: Int32Array.from(limit),
+    origin: layout.mode === 'origin' ? Int32Array.from(origin) : null,
+    isPredict,
+    label: Float64Array.from(label),
+    trainRows: train,
+  };
+}

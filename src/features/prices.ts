@@ -1,0 +1,209 @@
+import { z } from 'zod';
+import { isoWeekday } from '../core/days.js';
+import { defineFamily, type FeatureColumn, type ItemPrices, NO_NEEDS, type PartitionEnv } from './family.js';
+
+export const PRICE_FEATURES = [
+  'price',
+  'price_max',
+  'price_min',
+  'price_mean',
+  'price_std',
+  'price_rel_max',
+  'price_distinct',
+  'price_momentum_1w',
+  'price_momentum_4w',
+  'price_momentum_52w',
+  'dept_same_price',
+  'price_rel_dept',
+] as const;
+export type PriceFeature = (typeof PRICE_FEATURES)[number];
+
+const DESCRIPTIONS: Record<PriceFeature, string> = {
+  price: 'price of the item in the store for the price week of the target day',
+  price_max: 'maximum of the item-store price over all weeks up to the price week',
+  price_min: 'minimum of the item-store price over all weeks up to the price week',
+  price_mean: 'mean of the item-store price over all weeks up to the price week',
+  price_std: 'sample standard deviation of the item-store price over all weeks up to the price week',
+  price_rel_max: 'price divided by its maximum so far',
+  price_distinct: 'number of distinct prices of the item in the store so far',
+  price_momentum_1w: "price divided by the previous week's price",
+  price_momentum_4w: 'price divided by the mean price of the 4 weeks ending with the price week',
+  price_momentum_52w: 'price divided by the mean price of the 52 weeks ending with the price week',
+  dept_same_price:
+    "number of items of the store's department with the same price that week (itself included)",
+  price_rel_dept: "price divided by the mean price of the store's department that week",
+};
+
+export const pricesParamsSchema = z
+  .object({
+    features: z
+      .array(z.enum(PRICE_FEATURES))
+      .min(1)
+      .default([...PRICE_FEATURES]),
+  })
+  .strict();
+export type PricesParams = z.infer<typeof pricesParamsSchema>;
+
+/** First day of the retail week holding `day`, weeks starting on `weekStart` (0 = Sunday). */
+export function weekStartOf(day: number, weekStart: number): number {
+  const dow = isoWeekday(day) % 7;
+  return day - ((dow - weekStart + 7) % 7);
+}
+
+/** Per price row of one item: every price feature as of that week. */
+export interface PriceRowStats {
+  readonly values: ReadonlyMap<PriceFeature, Float64Array>;
+}
+
+/**
+ * Price features for each weekly price row of one item (rows ascending, all within the price
+ * boundary): expanding statistics over rows 0..i, momentum against earlier weeks, and the
+ * department's prices in the same week.
+ */
+export function priceRowStats(
+  item: ItemPrices,
+  dept: ReadonlyMap<number, ReadonlyMap<number, number>> | null,
+  deptMean: (week: number) => number,
+): PriceRowStats {
+  const { weeks, prices } = item;
+  const n = weeks.length;
+  const col = () => new Float64Array(n);
+  const v = {
+    price: col(),
+    price_max: col(),
+    price_min: col(),
+    price_mean: col(),
+    price_std: col(),
+    price_rel_max: col(),
+    price_distinct: col(),
+    price_momentum_1w: col(),
+    price_momentum_4w: col(),
+    price_momentum_52w: col(),
+    dept_same_price: col(),
+    price_rel_dept: col(),
+  };
+  let max = -Infinity;
+  let min = Infinity;
+  // Welford: prices are decimals, so running sums of squares would cancel for steady prices.
+  let mean = 0;
+  let m2 = 0;
+  const seen = new Set<number>();
+  let lo4 = 0;
+  let lo52 = 0;
+  for (let i = 0; i < n; i++) {
+    const p = prices[i]!;
+    const wk = weeks[i]!;
+    v.price[i] = p;
+    if (p > max) max = p;
+    if (p < min) min = p;
+    const d = p - mean;
+    mean += d / (i + 1);
+    m2 += d * (p - mean);
+    seen.add(p);
+    v.price_max[i] = max;
+    v.price_min[i] = min;
+    v.price_mean[i] = mean;
+    v.price_std[i] = i > 0 ? Math.sqrt(m2 / i) : Number.NaN;
+    v.price_rel_max[i] = p / max;
+    v.price_distinct[i] = seen.size;
+    v.price_momentum_1w[i] = i > 0 && weeks[i - 1] === wk - 7 ? p / prices[i - 1]! : Number.NaN;
+    while (weeks[lo4]! < wk - 21) lo4++;
+    while (weeks[lo52]! < wk - 357) lo52++;
+    v.price_momentum_4w[i] = p / meanOf(prices, lo4, i);
+    v.price_momentum_52w[i] = p / meanOf(prices, lo52, i);
+    const atWeek = dept?.get(wk);
+    v.dept_same_price[i] = atWeek ? (atWeek.get(p) ?? 0) : Number.NaN;
+    v.price_rel_dept[i] = atWeek ? p / deptMean(wk) : Number.NaN;
+  }
+  return { values: new Map(Object.entries(v) as Array<[PriceFeature, Float64Array]>) };
+}
+
+// Windows of at most 52 rows: summing them directly is cheap and carries no running-sum drift.
+function meanOf(prices: Float64Array, lo: number, hi: number): number {
+  let s = 0;
+  for (let j = lo; j <= hi; j++) s += prices[j]!;
+  return s / (hi - lo + 1);
+}
+
+/** Mean price of a department's items in one week (cached per partition). */
+function departmentMean(env: PartitionEnv, dept: string, week: number): number {
+  const key = `price-dept\u001f${dept}\u001f${week}`;
+  const hit = env.cache.get(key);
+  if (hit !== undefined) return hit as number;
+  const counts = env.deptPrices?.get(dept)?.get(week);
+  let s = 0;
+  let c = 0;
+  if (counts) {
+    for (const [p, k] of counts) {
+      s += p * k;
+      c += k;
+    }
+  }
+  const m = c > 0 ? s / c : Number.NaN;
+  env.cache.set(key, m);
+  return m;
+}
+
+/** Index of the price row a target day uses, or -1: its own week within the price boundary, else the last known. */
+export function priceRowFor(weeks: Int32Array, day: number, weekStart: number, boundary: number): number {
+  const ws = weekStartOf(day, weekStart);
+  if (ws > boundary) {
+    // Past the price boundary: the last price known at the boundary (weeks are all within it).
+    return weeks.length - 1;
+  }
+  let lo = 0;
+  let hi = weeks.length - 1;
+  while (lo <= hi) {
+    const mid = (lo + hi) >> 1;
+    const w = weeks[mid]!;
+    if (w === ws) return mid;
+    if (w < ws) lo = mid + 1;
+    else hi = mid - 1;
+  }
+  return -1;
+}
+
+/**
+ * Prices of the target day's retail week, within the price boundary (DESIGN.md rule 2: weeks
+ * starting on or before C, or C + H when prices are known ahead). Past the boundary the last
+ * known row is carried; a week inside the boundary without a price row is NULL.
+ */
+export const prices = defineFamily<PricesParams>({
+  name: 'prices',
+  params: pricesParamsSchema,
+  columns(p) {
+    return p.features.map(
+      (f): FeatureColumn => ({
+        name: f,
+        family: 'prices',
+        description: DESCRIPTIONS[f],
+        source: 'prices',
+        shift: 0,
+      }),
+    );
+  },
+  needs() {
+    return { ...NO_NEEDS, prices: true };
+  },
+  compute(p, _set, s, env, out) {
+    const { rows } = s;
+    const item = env.prices?.get(s.itemId);
+    if (!item || item.weeks.length === 0) {
+      for (const col of out) col.fill(Number.NaN, 0, rows.n);
+      return;
+    }
+    const deptId = env.departmentOf?.get(s.itemId) ?? null;
+    const dept = deptId === null ? null : (env.deptPrices?.get(deptId) ?? null);
+    const stats = priceRowStats(item, dept, (wk) =>
+      deptId === null ? Number.NaN : departmentMean(env, deptId, wk),
+    );
+    const idx = new Int32Array(rows.n);
+    for (let r = 0; r < rows.n; r++)
+      idx[r] = priceRowFor(item.weeks, rows.day[r]!, env.weekStart, env.priceBoundary);
+    for (let c = 0; c < p.features.length; c++) {
+      const src = stats.values.get(p.features[c]!)!;
+      const col = out[c]!;
+      for (let r = 0; r < rows.n; r++) col[r] = idx[r]! >= 0 ? src[idx[r]!]! : Number.NaN;
+    }
+  },
+});
