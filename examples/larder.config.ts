@@ -31,4 +31,58 @@ export default defineConfig({
     // other names maps them here, e.g. sales: { sku: 'item_id', qty: 'units', till_id: null }.
     columns: {},
   },
+
+  // Feature sets: what `larder build --set NAME --cutoff DAY` materialises. `standard` forecasts
+  // 28 days ahead in shift mode, so every sales-derived feature looks at least 28 days back
+  // (a shorter shift would need sales past the cutoff for the last prediction day, and is
+  // refused). About 40 features over all six families; see docs/features.md.
+  sets: [
+    {
+      name: 'standard',
+      description: 'daily demand, 28 days ahead, two years of training rows',
+      horizon: 28,
+      mode: 'shift',
+      training: { days: 730 },
+      pricesKnownAhead: false,
+      // Stock-out zeros (DESIGN.md) are hidden from the series' own lags and windows once
+      // the run is long enough to be detected.
+      stockoutMask: true,
+      families: {
+        lags: { days: [28, 35, 42, 364] },
+        windows: [
+          { size: 7, shift: 28, stats: ['mean', 'std', 'min', 'max', 'zero_share', 'ewm'] },
+          { size: 28, shift: 28, stats: ['mean', 'std', 'zero_share', 'ewm'] },
+          { size: 91, shift: 28, stats: ['mean', 'std'] },
+          { size: 364, shift: 28, stats: ['mean'] },
+        ],
+        calendar: {
+          features: [
+            'day_of_week',
+            'day_of_month',
+            'iso_week',
+            'month',
+            'year',
+            'is_weekend',
+            'event_name',
+            'event_kind',
+            'benefit_day',
+          ],
+          eventKinds: ['holiday', 'sporting'],
+        },
+        prices: {
+          features: [
+            'price',
+            'price_rel_max',
+            'price_distinct',
+            'price_momentum_1w',
+            'price_momentum_4w',
+            'dept_same_price',
+            'price_rel_dept',
+          ],
+        },
+        encodings: [{ groups: ['item', 'store_department', 'item_region'], window: 91, shift: 28, m: 20 }],
+        hierarchy: [{ levels: ['store', 'item'], size: 28, shift: 28, stats: ['mean'] }],
+      },
+    },
+  ],
 });
