@@ -63,7 +63,7 @@ export const duplicateRowFaultSchema = z.object({
   day: day.nullable(),
   units: z.number().int().nullable(),
   lines: z.tuple([z.number().int(), z.number().int()]),
-  /** Rows the repeated line carries (the loader rejects each). */
+  /** Sales rows the repeated line carries (1 in the long layout); the loader rejects the line. */
   rows: z.number().int(),
 });
 
@@ -160,7 +160,7 @@ export const faultsFileSchema = z.object({
     files: z.record(z.string(), z.object({ lines: z.number().int(), units: z.number().int().optional() })),
     /** What the raw tables hold after loading every file (duplicates rejected). */
     tables: tablesSchema,
-    /** Rows the loader must reject, per table. */
+    /** Lines the loader must reject, per table (one per repeated line, in either layout). */
     rejects: z.record(z.string(), z.number().int()),
     /** The raw tables after loading corrections/ with mode replace on top. */
     after_corrections: tablesSchema,

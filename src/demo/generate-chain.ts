@@ -179,7 +179,7 @@ export async function generateChain(
         if (f.duplicateDays.length > 0) {
           sales.line(line);
           lineUnits += units;
-          rejects += rows;
+          rejects++; // the loader rejects the repeated line as one row
           const at = sales.lines - 1;
           faults.push({
             kind: 'duplicate-row',
