@@ -92,6 +92,9 @@ export async function loadSeriesIds(s: DbSession): Promise<SeriesIds> {
   );
 }
 
+/** Snapshot tables (schema.table) found not stored in row order; snapshot tables never change. */
+const UNORDERED = new Set<string>();
+
 interface Sink {
   write(b: ExportBatch): void | Promise<void>;
   finish(): Promise<void>;
@@ -128,16 +131,20 @@ export async function exportSnapshot(db: Db, _config: Config, opts: ExportOption
     throw new UsageError(`format must be one of ${EXPORT_FORMATS.join(', ')}, got '${format}'`);
   const path = resolve(opts.out);
   const manifestPath = `${path}.manifest.json`;
-  // Physical order first (no sort); a table not stored in order is read again sorted.
-  for (const mode of ['physical', 'sorted'] as const) {
+  // Physical order first (no sort); a table not stored in order is read again sorted, and
+  // remembered as such for later exports by this process.
+  for (let attempt = 0; ; attempt++) {
     const file = new HashingFile(path);
+    let tableKey = '';
     try {
       const manifest = await db.transaction(async (tx) => {
         const info = await pinSnapshot(tx, opts.set, opts.cutoff);
+        tableKey = `${db.schema}.${info.tableName}`;
         const layout = exportLayout(info, opts);
         const ids = await loadSeriesIds(tx);
         const sink = openSink(format, file, layout, ids, info);
         let rowCount = 0;
+        const mode = UNORDERED.has(tableKey) ? 'sorted' : 'physical';
         for await (const b of readSnapshot(db, tx, layout, mode)) {
           await sink.write(b);
           rowCount += b.length;
@@ -148,22 +155,18 @@ export async function exportSnapshot(db: Db, _config: Config, opts: ExportOption
         return { ...snapshotManifest(info, layout), rowCount };
       });
       const sha256 = file.commit();
-      const full: ExportManifest = {
-        ...manifest,
-        file: basename(path),
-        format,
-        bytes: file.bytes,
-        sha256,
-      };
+      const full: ExportManifest = { ...manifest, file: basename(path), format, bytes: file.bytes, sha256 };
       writeAtomically(manifestPath, `${JSON.stringify(full, null, 2)}\n`);
       return { path, manifestPath, rowCount: manifest.rowCount, sha256 };
     } catch (err) {
       file.discard();
-      if (err instanceof OutOfOrderError && mode === 'physical') continue;
+      if (err instanceof OutOfOrderError && attempt === 0) {
+        UNORDERED.add(tableKey);
+        continue;
+      }
       throw err;
     }
   }
-  throw new Error('unreachable');
 }
 
 function emptyBatch(layout: ExportLayout): ExportBatch {

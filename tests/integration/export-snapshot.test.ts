@@ -255,8 +255,9 @@ describe('order, atomicity and errors', () => {
       `CREATE TABLE snap_broken (series_id int4, day date, origin date, is_predict bool, label int4, lag_7 float8)`,
     );
     await db.query(
-      `INSERT INTO snapshots (set_name, cutoff, definition_hash, data_fingerprint, table_name, mode, horizon, columns)
-       VALUES ('broken', '2024-01-31', 'x', 'y', 'snap_broken', 'shift', 28, $1)`,
+      `INSERT INTO snapshots (set_name, cutoff, definition_hash, data_fingerprint, table_name, mode, horizon, columns,
+         row_count, train_rows, predict_rows, timings, train_from, fingerprint_parts, codes, definition)
+       VALUES ('broken', '2024-01-31', 'x', 'y', 'snap_broken', 'shift', 28, $1, 0, 0, 0, '{}', '2024-01-01', '{}', '{}', '{}')`,
       [
         JSON.stringify([
           { name: 'lag_7', type: 'float8' },
