@@ -3,6 +3,7 @@ import { LarderError } from '../db/errors.js';
 import { type CommandModule, createContext } from './context.js';
 import * as build from './commands/build.js';
 import * as check from './commands/check.js';
+import * as demo from './commands/demo.js';
 import * as init from './commands/init.js';
 import * as load from './commands/load.js';
 import * as publish from './commands/publish.js';
@@ -12,7 +13,7 @@ import * as snapshots from './commands/snapshots.js';
 import * as waive from './commands/waive.js';
 
 /** Every CLI command, one module each under `commands/`. Adding a command is one line here. */
-const COMMANDS: CommandModule[] = [init, load, check, waive, sets, build, snapshots, publish, serve];
+const COMMANDS: CommandModule[] = [init, load, check, waive, sets, build, snapshots, publish, serve, demo];
 
 export async function main(argv: readonly string[]): Promise<number> {
   const program = new Command('larder')

@@ -1,6 +1,10 @@
 import { resolve } from 'node:path';
 import type { Config } from '../config/config.js';
 import type { Db } from '../db/database.js';
+import { generateStep } from './steps/generate-step.js';
+import { loadStep } from './steps/load-step.js';
+import { resetStep } from './steps/reset-step.js';
+import { summaryStep } from './steps/summary-step.js';
 
 /** What each demo step gets. The demo runs in its own schema, reset at the start. */
 export interface DemoContext {
@@ -19,7 +23,7 @@ export interface DemoStep {
 }
 
 /** The demo's steps in order; each pipeline stage adds its own step here. */
-export const DEMO_STEPS: DemoStep[] = [];
+export const DEMO_STEPS: DemoStep[] = [generateStep, resetStep, loadStep, summaryStep];
 
 export interface DemoOptions {
   readonly dataDir?: string;
