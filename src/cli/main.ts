@@ -3,17 +3,34 @@ import { LarderError } from '../db/errors.js';
 import { type CommandModule, createContext } from './context.js';
 import * as build from './commands/build.js';
 import * as check from './commands/check.js';
-import * as demo from './commands/demo.js';
 import * as init from './commands/init.js';
 import * as load from './commands/load.js';
 import * as publish from './commands/publish.js';
+import * as run from './commands/run.js';
+import * as runs from './commands/runs.js';
+import * as schedule from './commands/schedule.js';
 import * as serve from './commands/serve.js';
 import * as sets from './commands/sets.js';
 import * as snapshots from './commands/snapshots.js';
 import * as waive from './commands/waive.js';
+import * as worker from './commands/worker.js';
 
 /** Every CLI command, one module each under `commands/`. Adding a command is one line here. */
-const COMMANDS: CommandModule[] = [init, load, check, waive, sets, build, snapshots, publish, serve, demo];
+const COMMANDS: CommandModule[] = [
+  init,
+  load,
+  check,
+  waive,
+  sets,
+  build,
+  snapshots,
+  publish,
+  serve,
+  run,
+  worker,
+  schedule,
+  runs,
+];
 
 export async function main(argv: readonly string[]): Promise<number> {
   const program = new Command('larder')

@@ -1,0 +1,24 @@
+import type { BuildPlan } from '../build/build-plan.js';
+import { buildPartition } from '../build/build-partition.js';
+import type { WorkHandler } from './worker.js';
+
+/** Item kind of one partition of a snapshot build; the job payload is the build plan. */
+export const BUILD_PARTITION = 'build-partition';
+
+/**
+ * Builds one partition of a planned snapshot. The plan carries the set's definition, so a worker
+ * on another machine builds exactly what was planned whatever its own config says.
+ */
+export const buildPartitionHandler: WorkHandler = {
+  kind: BUILD_PARTITION,
+  async run({ db, config, item }) {
+    const plan = item.payload as BuildPlan;
+    const r = await buildPartition(db, config, plan, item.partition, { allowUnsafe: plan.unsafe });
+    return { rows: r.rowCount };
+  },
+};
+
+/** The kinds of work `larder worker` and the runner's own claim loops do. */
+export const WORK_HANDLERS: ReadonlyMap<string, WorkHandler> = new Map([
+  [buildPartitionHandler.kind, buildPartitionHandler],
+]);
