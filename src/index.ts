@@ -7,3 +7,14 @@ export type { FeatureRead, FeatureRow, ReadRequest, SeriesBatch, SetInfo } from 
 export { publishSnapshot, type PublishOptions, type PublishResult } from './publish/publish-snapshot.js';
 export { openCache } from './publish/open-cache.js';
 export type { FeatureCache } from './publish/feature-cache.js';
+export {
+  exportSnapshot,
+  type ExportManifest,
+  type ExportOptions,
+  type ExportResult,
+  type SnapshotManifest,
+} from './export/export-snapshot.js';
+export { openSnapshot, type OpenedSnapshot, type OpenSnapshotOptions, type SnapshotRow } from './export/open-snapshot.js';
+export { materializeScales, type MaterializeSummary } from './eval/materialize-scales.js';
+export { scoreForecasts, type ScoreOptions, type ScoreResult } from './eval/score-forecasts.js';
+export { mase, maseScale, rmsse, rmsseScale, wrmsse } from './eval/metrics.js';
