@@ -14,7 +14,12 @@ export {
   type ExportResult,
   type SnapshotManifest,
 } from './export/export-snapshot.js';
-export { openSnapshot, type OpenedSnapshot, type OpenSnapshotOptions, type SnapshotRow } from './export/open-snapshot.js';
+export {
+  openSnapshot,
+  type OpenedSnapshot,
+  type OpenSnapshotOptions,
+  type SnapshotRow,
+} from './export/open-snapshot.js';
 export { materializeScales, type MaterializeSummary } from './eval/materialize-scales.js';
 export { scoreForecasts, type ScoreOptions, type ScoreResult } from './eval/score-forecasts.js';
 export { mase, maseScale, rmsse, rmsseScale, wrmsse } from './eval/metrics.js';
