@@ -1,4 +1,5 @@
 import type { z } from 'zod';
+import { parseDay } from '../core/days.js';
 import { quoteIdent } from '../db/database.js';
 import { checkParams, defineCheck, intAtLeast } from './check-definition.js';
 import type { FindingDraft } from './finding.js';
@@ -40,7 +41,7 @@ export const duplicateKeys = defineCheck({
     const rejected = await db.query<RejectedDuplicate>(
       `SELECT r.batch_id, r.file, r.line, r.other_line, r.key, b.target
        FROM rejected_rows r JOIN load_batches b USING (batch_id)
-       WHERE r.other_line IS NOT NULL
+       WHERE r.other_line IS NOT NULL AND b.status = 'loaded'
          AND b.batch_id >= coalesce((SELECT max(x.batch_id) FROM load_batches x
                                      WHERE x.target = b.target AND x.mode = 'replace' AND x.status = 'loaded'), 0)
        ORDER BY r.batch_id, r.line`,
@@ -121,7 +122,7 @@ interface RejectedDuplicate {
   target: string;
 }
 
-interface KeyParts {
+export interface KeyParts {
   item_id?: string;
   store_id?: string;
   region_id?: string;
@@ -129,8 +130,42 @@ interface KeyParts {
   day?: number;
 }
 
-/** The ids and day in a rejected row's key text, as far as it names them. */
-export function parseRejectedKey(_target: string, key: string | null): KeyParts {
-  if (!key) return {};
-  return {};
+/** The loader's key columns per load target, in the order of its JSON key text (DESIGN.md contracts). */
+const REJECT_KEY_COLUMNS: Readonly<Record<string, readonly string[]>> = {
+  items: ['item_id'],
+  stores: ['store_id'],
+  calendar: ['day'],
+  events: ['day', 'name'],
+  benefit_days: ['region_id', 'day'],
+  prices: ['item_id', 'store_id', 'week_start'],
+  sales: ['item_id', 'store_id', 'day'],
+};
+
+/**
+ * The ids and day in a rejected row's key: the loader stores it as a JSON array of the key
+ * columns in contract order (e.g. `["A1","S1","2024-01-05"]` for sales). Anything else yields
+ * no parts, and the finding keeps the raw key text.
+ */
+export function parseRejectedKey(target: string, key: string | null): KeyParts {
+  const cols = REJECT_KEY_COLUMNS[target];
+  if (!key || !cols) return {};
+  let values: unknown;
+  try {
+    values = JSON.parse(key);
+  } catch {
+    return {};
+  }
+  if (!Array.isArray(values) || values.length !== cols.length) return {};
+  const parts: KeyParts = {};
+  cols.forEach((c, i) => {
+    const v = values[i];
+    if (typeof v !== 'string') return;
+    if (c === 'day' || c === 'week_start') {
+      const d = parseDay(v);
+      if (d !== null) parts.day = d;
+    } else if (c === 'item_id' || c === 'store_id' || c === 'region_id') {
+      parts[c] = v;
+    }
+  });
+  return parts;
 }

@@ -1,0 +1,41 @@
+import { describe, expect, test } from 'vitest';
+import { judgePrice } from '../../src/checks/price-spikes.js';
+
+const P = { threshold: 3.5, minHistoryWeeks: 4, ratio: 3 };
+const judge = (price: number, base: number[]) =>
+  judgePrice(price, base, base.length, P, new Float64Array(base.length));
+
+describe('judgePrice', () => {
+  test('the worked example of REFERENCES.md 3.6 (Iglewicz and Hoaglin 1993)', () => {
+    // Baseline [10,11,11,12,12,12,13,13,17,18]: median 12, MAD 1 (deviations 0,0,0,1,1,1,1,2,5,6).
+    const base = [10, 11, 11, 12, 12, 12, 13, 13, 17, 18];
+    expect(judge(40, base)).toMatchObject({ rule: 'modified-z', median: 12, mad: 1 });
+    expect(judge(40, base)!.observed).toBeCloseTo(18.886, 3);
+    expect(judge(17, base)).toBeNull(); // 3.3725 < 3.5
+    expect(judge(18, base)!.observed).toBeCloseTo(4.047, 3);
+    expect(judge(6, base)!.observed).toBeCloseTo(4.047, 3); // two-sided
+  });
+
+  test('MAD 0: the ratio rule [1/3, 3]', () => {
+    const base = Array.from({ length: 13 }, () => 2.99);
+    expect(judge(8.99, base)).toMatchObject({ rule: 'ratio' }); // 3.007
+    expect(judge(8.97, base)).toBeNull(); // exactly 3: inside
+    expect(judge(0.99, base)).toMatchObject({ rule: 'ratio' }); // 0.331 < 0.3333
+    expect(judge(1.0, base)).toBeNull(); // 0.3344
+    expect(judge(2.2, base)).toBeNull(); // a 26% promotion
+  });
+
+  test('a short baseline uses the ratio rule only', () => {
+    expect(judge(3.5, [1])).toMatchObject({ rule: 'ratio', observed: 3.5, median: 1 });
+    expect(judge(2.5, [1])).toBeNull();
+    // Three weeks 2.0, 2.1, 2.2: median 2.1, MAD 0.1, so z(3.0) = 0.6745 x 0.9 / 0.1 = 6.07 would
+    // flag; below four weeks only the ratio counts (3.0 / 2.1 = 1.43). With a fourth week 2.1 the
+    // MAD is 0.05 and z = 12.1.
+    expect(judge(3.0, [2, 2.1, 2.2])).toBeNull();
+    expect(judge(3.0, [2, 2.1, 2.2, 2.1])).toMatchObject({ rule: 'modified-z' });
+  });
+
+  test('no baseline: not judged', () => {
+    expect(judge(100, [])).toBeNull();
+  });
+});
