@@ -19,14 +19,15 @@ export interface RedisCacheOptions {
   readonly cluster?: boolean;
   /**
    * A command that gets no answer in this time fails (and a reader falls back to PostgreSQL)
-   * rather than waiting: a feature read is worth milliseconds or nothing.
+   * rather than waiting: a feature read is worth milliseconds or nothing. Default 250 ms;
+   * a publisher wants far longer (`openCache` gives it 30 s).
    */
   readonly commandTimeoutMs?: number;
   readonly connectTimeoutMs?: number;
 }
 
-/** Commands in flight per window when writing or expiring many keys. */
-const WRITE_WINDOW = 2000;
+/** Commands per pipeline when writing or expiring many keys (500 vectors of 4.5 kB: ~2 MB). */
+const WRITE_WINDOW = 500;
 /** Keys per MGET / EXISTS. */
 const MULTI_KEY_CHUNK = 500;
 
@@ -79,7 +80,6 @@ export function createRedisCache(opts: RedisCacheOptions): FeatureCache {
   const retry = (times: number) => Math.min(50 * 2 ** Math.min(times, 6), 2000);
   const common = {
     enableOfflineQueue: false,
-    enableAutoPipelining: true,
     commandTimeout,
     connectTimeout,
     maxRetriesPerRequest: 0,
@@ -89,7 +89,6 @@ export function createRedisCache(opts: RedisCacheOptions): FeatureCache {
   const client: Redis | Cluster = target.cluster
     ? new Cluster(target.nodes, {
         enableOfflineQueue: false,
-        enableAutoPipelining: true,
         clusterRetryStrategy: retry,
         slotsRefreshTimeout: connectTimeout,
         redisOptions: common,
@@ -118,19 +117,32 @@ export function createRedisCache(opts: RedisCacheOptions): FeatureCache {
     }
   };
   // One MGET/EXISTS may only name keys of one slot in a Cluster; same tag means same slot.
-  const groups = (keys: readonly string[]): number[][] => {
-    if (!target.cluster) return chunks([...keys.keys()], MULTI_KEY_CHUNK);
+  const groups = (keys: readonly string[], size = MULTI_KEY_CHUNK): number[][] => {
+    if (!target.cluster) return chunks([...keys.keys()], size);
     const byTag = new Map<string, number[]>();
     keys.forEach((k, i) => {
       pushTo(byTag, hashTag(k), i);
     });
-    return [...byTag.values()].flatMap((g) => chunks(g, MULTI_KEY_CHUNK));
+    return [...byTag.values()].flatMap((g) => chunks(g, size));
   };
-  const windowed = async (keys: readonly string[], fn: (k: string) => Promise<number>): Promise<number> => {
+  // Writes go out as explicit pipelines: one socket write per chunk instead of one per command
+  // (measured: auto-pipelining halved MGET throughput, so reads are sent as plain commands).
+  // A Cluster pipeline may only touch one slot, so chunks follow the tag groups there.
+  type Op = (p: ReturnType<typeof client.pipeline>, key: string, i: number) => void;
+  const pipelined = async (keys: readonly string[], op: Op): Promise<number> => {
     let total = 0;
-    for (const part of chunks(keys, WRITE_WINDOW)) {
-      for (const n of await Promise.all(part.map(fn))) total += n;
-    }
+    const run = async (idx: number[]) => {
+      const p = client.pipeline();
+      for (const i of idx) op(p, keys[i]!, i);
+      const res = (await p.exec()) ?? [];
+      for (const [err, v] of res) {
+        if (err) throw err;
+        if (typeof v === 'number') total += v;
+      }
+    };
+    const parts = target.cluster ? groups(keys, WRITE_WINDOW) : chunks([...keys.keys()], WRITE_WINDOW);
+    // A few pipelines in flight keep the socket busy without buffering the whole version.
+    for (let i = 0; i < parts.length; i += 4) await Promise.all(parts.slice(i, i + 4).map(run));
     return total;
   };
   const getBuffers = (keys: readonly string[]) =>
@@ -170,26 +182,31 @@ export function createRedisCache(opts: RedisCacheOptions): FeatureCache {
     },
     setMany: (entries: readonly CacheEntry[], ttlMs?: number) =>
       guard('SET', async () => {
-        for (const part of chunks(entries, WRITE_WINDOW)) {
-          await Promise.all(part.map(([k, v]) => (ttlMs ? client.set(k, v, 'PX', ttlMs) : client.set(k, v))));
-        }
+        await pipelined(
+          entries.map(([k]) => k),
+          (p, k, i) => {
+            const v = entries[i]![1];
+            if (ttlMs) p.set(k, v, 'PX', ttlMs);
+            else p.set(k, v);
+          },
+        );
       }),
     countExisting: (keys) =>
       guard('EXISTS', async () => {
         const counts = await Promise.all(groups(keys).map((idx) => client.exists(idx.map((i) => keys[i]!))));
         return counts.reduce((a, b) => a + b, 0);
       }),
-    persistMany: (keys) => guard('PERSIST', () => windowed(keys, (k) => client.persist(k))),
+    persistMany: (keys) => guard('PERSIST', () => pipelined(keys, (p, k) => p.persist(k))),
     expireMany: (keys, seconds) =>
       guard('EXPIRE', async () => {
-        await windowed(keys, (k) => client.expire(k, seconds));
+        await pipelined(keys, (p, k) => p.expire(k, seconds));
       }),
     incr: (key) => guard('INCR', () => client.incr(key)),
     swap: (key, value) =>
       guard('SET GET', async () => (await client.call('SET', key, value, 'GET')) as string | null),
     deleteMany: (keys) =>
       guard('DEL', async () => {
-        await windowed(keys, (k) => client.del(k));
+        await pipelined(keys, (p, k) => p.del(k));
       }),
     async close() {
       if (client.status === 'ready') await client.quit().catch(() => client.disconnect());

@@ -53,6 +53,22 @@ export interface SeriesBatch {
   readonly values: Float32Array;
 }
 
+/**
+ * Several series as matrices, without per-feature objects (the fast batched read). `values` holds
+ * one `horizon x columns.length` matrix per requested series, in request order; NaN marks NULL
+ * cells and every cell of a series that is not in the set (`sources[i] === null`).
+ */
+export interface VectorBatch {
+  readonly set: string;
+  readonly version: number;
+  readonly cutoff: string;
+  readonly firstDay: string;
+  readonly horizon: number;
+  readonly columns: readonly string[];
+  readonly values: Float32Array;
+  readonly sources: readonly (ReadSource | null)[];
+}
+
 /** What a set currently serves (HTTP `GET /v1/sets/:set`). */
 export interface SetInfo {
   readonly set: string;

@@ -4,22 +4,27 @@ import { formatDay, parseDay } from '../core/days.js';
 import type { Db } from '../db/database.js';
 import { LarderError } from '../db/errors.js';
 import { openDatabase } from '../db/open.js';
-import { CacheUnavailableError, chunks, type FeatureCache, pushTo } from '../publish/feature-cache.js';
-import { KeyLayout, type Manifest, parseManifest, splitItems, unpackInto } from '../publish/layout.js';
+import { CacheUnavailableError, type FeatureCache, pushTo } from '../publish/feature-cache.js';
+import { KeyLayout, unpackInto } from '../publish/layout.js';
 import { openCache } from '../publish/open-cache.js';
 import { NotFoundError } from '../publish/snapshot-catalogue.js';
 import { FallbackReader, type FallbackTarget } from './fallback-reader.js';
+import { type ReadAllOptions, readAllSeries } from './read-all.js';
 import {
   BadRequestError,
   type FallbackReason,
   type FeatureRead,
-  type FeatureRow,
   type ReaderEvents,
   type ReadRequest,
+  type ReadSource,
   type SeriesBatch,
   type SetInfo,
   UnavailableError,
+  type VectorBatch,
 } from './read-types.js';
+import { createViewResolver, decodeRows, type VersionView } from './version-view.js';
+
+export type { ReadAllOptions } from './read-all.js';
 
 export interface ReaderOptions {
   /** Redis to read; default `config.redis.url` (REDIS_URL); none means the in-process cache. */
@@ -43,34 +48,22 @@ export interface GetManyOptions {
   readonly unknown?: 'error' | 'null';
 }
 
-export interface ReadAllOptions {
-  readonly set: string;
-  /** Series per batch (one MGET each), default 200. */
-  readonly batchSize?: number;
-  /** MGETs in flight at once, default 8. */
-  readonly inflight?: number;
-}
-
 export interface Reader {
   readonly cache: FeatureCache;
   readonly db: Db;
+  /** One series (all H days, or one `day`) with named features. */
   get(req: ReadRequest): Promise<FeatureRead>;
+  /** Several series, in request order; one MGET per store slot, one SQL query for any misses. */
   getMany(reqs: readonly ReadRequest[], opts?: { unknown?: 'error' }): Promise<FeatureRead[]>;
   getMany(reqs: readonly ReadRequest[], opts: GetManyOptions): Promise<(FeatureRead | null)[]>;
+  /** Several series of one set as matrices in one Float32Array (no per-feature objects). */
+  getVectors(set: string, series: readonly { item: string; store: string }[]): Promise<VectorBatch>;
   /** What a set serves now: version, cutoff, columns. */
   describe(set: string): Promise<SetInfo>;
   /** Every series of the set's current version, from the cache only, in batches. */
   readAll(opts: ReadAllOptions): AsyncGenerator<SeriesBatch>;
   cacheReady(): boolean;
   close(): Promise<void>;
-}
-
-interface View {
-  readonly version: number;
-  readonly manifest: Manifest;
-  readonly firstDay: number;
-  readonly days: readonly string[];
-  readonly names: readonly string[];
 }
 
 interface Parsed {
@@ -115,6 +108,16 @@ function checkDay(set: string, version: number, first: number, horizon: number, 
 const isCacheFailure = (err: unknown) =>
   err instanceof CacheUnavailableError || (err instanceof LarderError && err.code === 'CACHE_ERROR');
 
+/** What the cache answered for a group of requests of one set. */
+interface CacheLookup {
+  readonly view: VersionView | null;
+  /** Packed matrices by request index. */
+  readonly hits: Map<number, Buffer>;
+  /** Requests to read from PostgreSQL, and why. */
+  readonly pending: number[];
+  readonly reason: FallbackReason;
+}
+
 /**
  * Opens a reader: feature reads from the cache by the set's current version, falling back to the
  * snapshot table in PostgreSQL on a miss or when the cache is unreachable (and saying so).
@@ -128,66 +131,49 @@ export async function createReader(opts: ReaderOptions = {}): Promise<Reader> {
   const db = opts.db ?? (await openDatabase(config, { migrate: false }));
   const ownCache = !opts.cache;
   const cache =
-    opts.cache ?? openCache(config, { url: opts.redisUrl, ...(opts.cluster ? { cluster: true } : {}) });
+    opts.cache ??
+    openCache(config, { url: opts.redisUrl, purpose: 'read', ...(opts.cluster ? { cluster: true } : {}) });
   if (ownCache) await cache.waitReady(1000);
   const layout = new KeyLayout(config.redis.prefix);
   const fallback = new FallbackReader(db);
-  const pointerMs = opts.pointerCacheMs ?? config.serve.pointerCacheMs;
+  const resolve = createViewResolver(cache, layout, opts.pointerCacheMs ?? config.serve.pointerCacheMs);
   const events = opts.events ?? {};
-  const pointers = new Map<string, { at: number; version: number | null }>();
-  const views = new Map<string, View>();
 
-  /** The set's current version in the cache, or null when the cache has none. */
-  async function resolve(set: string, fresh = false): Promise<View | null> {
-    let p = pointers.get(set);
-    if (fresh || !p || performance.now() - p.at >= pointerMs) {
-      const v = await cache.getString(layout.pointer(set));
-      p = { at: performance.now(), version: v === null ? null : Number(v) };
-      pointers.set(set, p);
-    }
-    if (p.version === null) return null;
-    const viewKey = `${set}:${p.version}`;
-    const known = views.get(viewKey);
-    if (known) return known;
-    const mKey = layout.manifest(set, p.version);
-    const text = await cache.getString(mKey);
-    if (text === null) return null;
-    const manifest = parseManifest(text, mKey);
-    const firstDay = parseDay(manifest.firstDay)!;
-    const view: View = {
-      version: p.version,
-      manifest,
-      firstDay,
-      days: Array.from({ length: manifest.horizon }, (_, h) => formatDay(firstDay + h)),
-      names: manifest.columns.map((c) => c.name),
-    };
-    // Manifests never change; keep a few versions per process.
-    if (views.size >= 64) views.delete(views.keys().next().value!);
-    views.set(viewKey, view);
-    return view;
-  }
-
-  function decode(view: View, p: Parsed, buf: Buffer): FeatureRead | null {
-    const H = view.manifest.horizon;
-    const F = view.names.length;
-    if (buf.byteLength !== H * F * 4) return null;
-    const m = new Float32Array(H * F);
-    unpackInto(buf, m, 0);
-    const h0 = p.day === null ? 0 : p.day - view.firstDay;
-    const h1 = p.day === null ? H : h0 + 1;
-    const rows: FeatureRow[] = [];
-    for (let h = h0; h < h1; h++) {
-      const features: Record<string, number | null> = {};
-      for (let f = 0; f < F; f++) {
-        const v = m[h * F + f]!;
-        features[view.names[f]!] = Number.isNaN(v) ? null : v;
+  async function lookup(set: string, idx: number[], parsed: readonly Parsed[], at: (i: number) => string) {
+    let view: VersionView | null = null;
+    let reason: FallbackReason = 'unavailable';
+    const hits = new Map<number, Buffer>();
+    if (cache.ready()) {
+      try {
+        view = await resolve(set);
+        if (!view) reason = 'unpublished';
+      } catch (err) {
+        if (!isCacheFailure(err)) throw err;
       }
-      rows.push({ day: view.days[h]!, features });
     }
-    return { ...key(p), cutoff: view.manifest.cutoff, version: view.version, source: 'cache', rows };
+    if (!view) return { view, hits, pending: idx, reason } satisfies CacheLookup;
+    const v = view;
+    for (const i of idx) checkDay(set, v.version, v.firstDay, v.manifest.horizon, parsed[i]!, at(i));
+    let bufs: (Buffer | null)[];
+    try {
+      bufs = await cache.getBuffers(
+        idx.map((i) => layout.series(set, v.version, parsed[i]!.store, parsed[i]!.item)),
+      );
+    } catch (err) {
+      if (!isCacheFailure(err)) throw err;
+      return { view, hits, pending: idx, reason: 'unavailable' } satisfies CacheLookup;
+    }
+    const pending: number[] = [];
+    idx.forEach((i, j) => {
+      const b = bufs[j];
+      // A value of the wrong size is not this version's vector: read it from PostgreSQL instead.
+      if (b && b.byteLength === v.stride * 4) hits.set(i, b);
+      else pending.push(i);
+    });
+    if (hits.size) events.hit?.(hits.size);
+    if (pending.length) events.miss?.(pending.length);
+    return { view, hits, pending, reason: 'miss' } satisfies CacheLookup;
   }
-
-  const key = (p: Parsed) => ({ set: p.set, item: p.item, store: p.store });
 
   async function fallbackTarget(set: string): Promise<FallbackTarget> {
     let target: FallbackTarget | null;
@@ -202,89 +188,72 @@ export async function createReader(opts: ReaderOptions = {}): Promise<Reader> {
     return target;
   }
 
-  async function readSet(
+  /** Reads `pending` requests from PostgreSQL; rows per request, null for an unknown series. */
+  async function fromDatabase(
     set: string,
-    idx: number[],
-    parsed: Parsed[],
-    out: (FeatureRead | null)[],
+    found: CacheLookup,
+    parsed: readonly Parsed[],
     at: (i: number) => string,
   ) {
-    let view: View | null = null;
-    let reason: FallbackReason = 'unavailable';
-    let pending = idx;
-    if (cache.ready()) {
-      try {
-        view = await resolve(set);
-        if (!view) reason = 'unpublished';
-      } catch (err) {
-        if (!isCacheFailure(err)) throw err;
-      }
-    }
-    if (view) {
-      const v = view;
-      for (const i of idx) checkDay(set, v.version, v.firstDay, v.manifest.horizon, parsed[i]!, at(i));
-      try {
-        const bufs = await cache.getBuffers(
-          idx.map((i) => layout.series(set, v.version, parsed[i]!.store, parsed[i]!.item)),
-        );
-        pending = [];
-        idx.forEach((i, j) => {
-          const b = bufs[j];
-          const read = b ? decode(v, parsed[i]!, b) : null;
-          if (read) out[i] = read;
-          else pending.push(i);
-        });
-        if (idx.length > pending.length) events.hit?.(idx.length - pending.length);
-        if (pending.length) events.miss?.(pending.length);
-        reason = 'miss';
-      } catch (err) {
-        if (!isCacheFailure(err)) throw err;
-      }
-    }
-    if (pending.length === 0) return;
-    events.fallback?.(reason, pending.length);
+    events.fallback?.(found.reason, found.pending.length);
     const target = await fallbackTarget(set);
     const first = parseDay(target.entry.cutoff)! + 1;
-    if (!view)
-      for (const i of pending) checkDay(set, target.version, first, target.entry.horizon, parsed[i]!, at(i));
-    let rows: Awaited<ReturnType<FallbackReader['read']>>;
+    if (!found.view) {
+      for (const i of found.pending)
+        checkDay(set, target.version, first, target.entry.horizon, parsed[i]!, at(i));
+    }
     try {
-      rows = await fallback.read(
+      return {
         target,
-        pending.map((i) => parsed[i]!),
-      );
+        rows: await fallback.read(
+          target,
+          found.pending.map((i) => parsed[i]!),
+        ),
+      };
     } catch (err) {
       throw new UnavailableError(`set '${set}': the cache could not answer and the database read failed`, {
         cause: err,
       });
     }
-    pending.forEach((i, j) => {
-      const r = rows[j];
-      out[i] = r
-        ? {
-            ...key(parsed[i]!),
-            cutoff: target.entry.cutoff,
-            version: target.version,
-            source: 'fallback',
-            rows: r,
-          }
-        : null;
-    });
   }
+
+  const key = (p: Parsed) => ({ set: p.set, item: p.item, store: p.store });
 
   async function getMany(
     reqs: readonly ReadRequest[],
     o: GetManyOptions = {},
   ): Promise<(FeatureRead | null)[]> {
-    const many = reqs.length > 1;
-    const at = (i: number) => (many ? `request ${i}: ` : '');
+    const at = (i: number) => (reqs.length > 1 ? `request ${i}: ` : '');
     const parsed = reqs.map((r, i) => parseRequest(r, at(i)));
     const out = new Array<FeatureRead | null>(reqs.length).fill(null);
     const bySet = new Map<string, number[]>();
     parsed.forEach((p, i) => {
       pushTo(bySet, p.set, i);
     });
-    await Promise.all([...bySet].map(([set, idx]) => readSet(set, idx, parsed, out, at)));
+    const readSet = async (set: string, idx: number[]) => {
+      const found = await lookup(set, idx, parsed, at);
+      const v = found.view;
+      if (v) {
+        for (const [i, b] of found.hits) {
+          const rows = decodeRows(v, b, parsed[i]!.day)!;
+          out[i] = {
+            ...key(parsed[i]!),
+            cutoff: v.manifest.cutoff,
+            version: v.version,
+            source: 'cache',
+            rows,
+          };
+        }
+      }
+      if (found.pending.length === 0) return;
+      const { target, rows } = await fromDatabase(set, found, parsed, at);
+      found.pending.forEach((i, j) => {
+        const r = rows[j];
+        const read = { ...key(parsed[i]!), cutoff: target.entry.cutoff, version: target.version };
+        out[i] = r ? { ...read, source: 'fallback', rows: r } : null;
+      });
+    };
+    await Promise.all([...bySet].map(([set, idx]) => readSet(set, idx)));
     if ((o.unknown ?? 'error') === 'error') {
       const missing = parsed.filter((_, i) => out[i] === null);
       if (missing.length) {
@@ -299,65 +268,76 @@ export async function createReader(opts: ReaderOptions = {}): Promise<Reader> {
     return out;
   }
 
-  async function* readAll(o: ReadAllOptions): AsyncGenerator<SeriesBatch> {
-    const batchSize = o.batchSize ?? 200;
-    const inflight = Math.max(1, o.inflight ?? 8);
-    if (!SET_RE.test(o.set)) throw new BadRequestError(`set '${o.set}' is not a set name`);
-    if (!Number.isInteger(batchSize) || batchSize < 1)
-      throw new BadRequestError('batchSize must be a positive integer');
-    const view = await resolve(o.set, true);
-    if (!view) throw new NotFoundError('UNKNOWN_SET', `set '${o.set}' has no current version in the cache`);
-    const { manifest, version } = view;
-    const stride = manifest.horizon * view.names.length;
-    const lists = await cache.getStrings(
-      manifest.stores.map((st) => layout.storeIndex(o.set, version, st.store)),
-    );
-    const expired = () =>
-      new LarderError(
-        'VERSION_EXPIRED',
-        `version ${version} of set '${o.set}' expired while being read: read again`,
-      );
-    function* tasks() {
-      for (const [i, st] of manifest.stores.entries()) {
-        const items = splitItems(lists[i] ?? '');
-        if (items.length !== st.series) throw expired();
-        for (const part of chunks(items, batchSize)) yield { store: st.store, items: part };
+  async function getVectors(
+    set: string,
+    series: readonly { item: string; store: string }[],
+  ): Promise<VectorBatch> {
+    const at = (i: number) => (series.length > 1 ? `series ${i}: ` : '');
+    const parsed = series.map((s, i) => parseRequest({ set, item: s.item, store: s.store }, at(i)));
+    const idx = parsed.map((_, i) => i);
+    const found = await lookup(set, idx, parsed, at);
+    const sources = new Array<ReadSource | null>(parsed.length).fill(null);
+    const fill = (frame: { stride: number }) => {
+      const values = new Float32Array(parsed.length * frame.stride).fill(Number.NaN);
+      for (const [i, b] of found.hits) {
+        unpackInto(b, values, i * frame.stride);
+        sources[i] = 'cache';
       }
-    }
-    const fetch = async (t: { store: string; items: string[] }): Promise<SeriesBatch> => {
-      const bufs = await cache.getBuffers(t.items.map((it) => layout.series(o.set, version, t.store, it)));
-      const values = new Float32Array(t.items.length * stride);
-      bufs.forEach((b, j) => {
-        if (!b || b.byteLength !== stride * 4) throw expired();
-        unpackInto(b, values, j * stride);
-      });
+      return values;
+    };
+    if (found.view && found.pending.length === 0) {
+      const v = found.view;
+      const m = v.manifest;
+      const values = fill(v);
       return {
-        set: o.set,
-        version,
-        cutoff: manifest.cutoff,
-        firstDay: manifest.firstDay,
-        horizon: manifest.horizon,
-        columns: view.names,
-        items: t.items,
-        stores: new Array<string>(t.items.length).fill(t.store),
+        set,
+        version: v.version,
+        cutoff: m.cutoff,
+        firstDay: m.firstDay,
+        horizon: m.horizon,
+        columns: v.names,
         values,
+        sources,
       };
-    };
-    const queue: Promise<SeriesBatch>[] = [];
-    const push = (p: Promise<SeriesBatch>) => {
-      p.catch(() => {}); // awaited below; this only stops an early exit from leaving it unhandled
-      queue.push(p);
-    };
-    const it = tasks();
-    for (let n = it.next(); ; ) {
-      while (queue.length < inflight && !n.done) {
-        push(fetch(n.value));
-        n = it.next();
-      }
-      const next = queue.shift();
-      if (!next) return;
-      yield await next;
     }
+    const { target, rows } = await fromDatabase(set, found, parsed, at);
+    const e = target.entry;
+    const v = found.view;
+    const frame = v
+      ? { version: v.version, cutoff: v.manifest.cutoff, horizon: v.manifest.horizon, names: v.names }
+      : {
+          version: target.version,
+          cutoff: e.cutoff,
+          horizon: e.horizon,
+          names: e.columns.map((c) => c.name),
+        };
+    const F = frame.names.length;
+    const stride = frame.horizon * F;
+    const values = fill({ stride });
+    const first = parseDay(frame.cutoff)! + 1;
+    // Database rows fit the frame only when they come from the same cutoff and columns.
+    const fits =
+      e.cutoff === frame.cutoff &&
+      e.columns.length === F &&
+      e.columns.every((c, f) => c.name === frame.names[f]);
+    found.pending.forEach((i, j) => {
+      const r = rows[j];
+      if (!r || !fits) return;
+      for (const row of r) {
+        const h = parseDay(row.day)! - first;
+        for (let f = 0; f < F; f++)
+          values[i * stride + h * F + f] = row.features[frame.names[f]!] ?? Number.NaN;
+      }
+      sources[i] = 'fallback';
+    });
+    return {
+      set,
+      ...frame,
+      firstDay: formatDay(first),
+      columns: frame.names,
+      values,
+      sources,
+    } as VectorBatch;
   }
 
   return {
@@ -367,9 +347,10 @@ export async function createReader(opts: ReaderOptions = {}): Promise<Reader> {
       return (await getMany([req]))[0]!;
     },
     getMany: getMany as Reader['getMany'],
+    getVectors,
     async describe(set) {
       parseRequest({ set, item: '-', store: '-' }, '');
-      let view: View | null = null;
+      let view: VersionView | null = null;
       if (cache.ready()) {
         try {
           view = await resolve(set);
@@ -406,7 +387,7 @@ export async function createReader(opts: ReaderOptions = {}): Promise<Reader> {
         source: 'fallback',
       };
     },
-    readAll,
+    readAll: (o) => readAllSeries(cache, layout, resolve, o),
     cacheReady: () => cache.ready(),
     async close() {
       if (ownCache) await cache.close();

@@ -25,7 +25,7 @@ const fx: SnapshotFixture[] = [];
 beforeAll(async () => {
   url = await redisServerUrl();
   raw = new Redis(url);
-  cache = createRedisCache({ url });
+  cache = createRedisCache({ url, commandTimeoutMs: 10_000 });
   await cache.waitReady(5000);
   for (const [i, cutoff] of ['2024-06-02', '2024-06-09', '2024-06-16'].entries()) {
     fx.push(

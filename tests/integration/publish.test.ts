@@ -22,7 +22,7 @@ const layout = new KeyLayout(prefix);
 beforeAll(async () => {
   const url = await redisServerUrl();
   raw = new Redis(url);
-  cache = createRedisCache({ url });
+  cache = createRedisCache({ url, commandTimeoutMs: 10_000 });
   await cache.waitReady(5000);
   a = await createSnapshotFixture(env().db, { cutoff: '2024-03-31', seed: 11, stores: 3, itemsPerStore: 40 });
   b = await createSnapshotFixture(env().db, { cutoff: '2024-04-07', seed: 12, stores: 3, itemsPerStore: 40 });
@@ -205,6 +205,25 @@ describe('reader over the published set', () => {
       });
     }
     expect(seen.size).toBe(b.series.length);
+  });
+
+  it('getVectors returns the matrices in request order, from the cache or PostgreSQL, NaN for unknown series', async () => {
+    const expected = await expectedVectors(b);
+    const picks = [b.series[9]!, { item: 'NOPE-9', store: 'ST-001' }, b.series[100]!, b.series[3]!];
+    const version = Number(await raw.get(layout.pointer('daily')));
+    // One of them only in PostgreSQL: its key removed from the cache.
+    await raw.del(layout.series('daily', version, b.series[3]!.store, b.series[3]!.item));
+    const v = await reader.getVectors('daily', picks);
+    expect(v).toMatchObject({ set: 'daily', cutoff: b.cutoff, horizon: 28, firstDay: '2024-04-08', version });
+    expect(v.columns).toEqual(b.columns);
+    expect(v.sources).toEqual(['cache', null, 'cache', 'fallback']);
+    const stride = 28 * b.columns.length;
+    const at = (i: number) =>
+      Array.from(v.values.subarray(i * stride, (i + 1) * stride), (x) => (Number.isNaN(x) ? null : x));
+    expect(at(0)).toEqual(expected.get(`${b.series[9]!.store}|${b.series[9]!.item}`));
+    expect(at(1).every((x) => x === null)).toBe(true);
+    expect(at(2)).toEqual(expected.get(`${b.series[100]!.store}|${b.series[100]!.item}`));
+    expect(at(3)).toEqual(expected.get(`${b.series[3]!.store}|${b.series[3]!.item}`));
   });
 
   it('rejects bad days and unknown series with clear messages', async () => {

@@ -20,7 +20,7 @@ let b: SnapshotFixture;
 
 beforeAll(async () => {
   cluster = await RedisClusterProcess.start(3);
-  cache = createRedisCache({ url: cluster.url });
+  cache = createRedisCache({ url: cluster.url, commandTimeoutMs: 10_000 });
   expect(await cache.waitReady(10_000)).toBe(true);
   a = await createSnapshotFixture(env().db, { cutoff: '2024-09-01', seed: 21, stores: 6, itemsPerStore: 25 });
   b = await createSnapshotFixture(env().db, { cutoff: '2024-09-08', seed: 22, stores: 6, itemsPerStore: 25 });

@@ -35,7 +35,7 @@ beforeAll(async () => {
     },
     'test',
   );
-  const publisher = createRedisCache({ url: redis.url });
+  const publisher = createRedisCache({ url: redis.url, commandTimeoutMs: 10_000 });
   await publishSnapshot(env().db, publisher, config, { set: 'daily', cutoff: fx.cutoff });
   await publisher.close();
   reader = await createReader({ config, db: env().db, events: metrics.readerEvents });

@@ -27,7 +27,7 @@ let fx: SnapshotFixture;
 beforeAll(async () => {
   const url = await redisServerUrl();
   raw = new Redis(url);
-  cache = createRedisCache({ url });
+  cache = createRedisCache({ url, commandTimeoutMs: 10_000 });
   await cache.waitReady(5000);
   fx = await createSnapshotFixture(env().db, { cutoff: '2024-08-04', seed: 3, stores: 2, itemsPerStore: 10 });
   const config = parseConfig(

@@ -140,17 +140,19 @@ describe('larder check gating', () => {
   });
 
   test('usage and config errors exit 2', async () => {
-    const unknown = await larder(['check', '--only', 'nope']);
+    writeFileSync(join(dir, 'bad.json'), JSON.stringify({ checks: { 'price-spikes': { threshold: 0 } } }));
+    const [unknown, badDay, badConfig, noReason] = await Promise.all([
+      larder(['check', '--only', 'nope']),
+      larder(['check', '--cutoff', '2024-02-30']),
+      larder(['check'], { LARDER_CONFIG: 'bad.json' }),
+      larder(['waive', '--check', 'units-sanity']),
+    ]);
     expect(unknown.code).toBe(2);
     expect(unknown.stderr).toMatch(/unknown check 'nope'/);
-    const badDay = await larder(['check', '--cutoff', '2024-02-30']);
     expect(badDay.code).toBe(2);
     expect(badDay.stderr).toMatch(/--cutoff: '2024-02-30' is not a valid day/);
-    writeFileSync(join(dir, 'bad.json'), JSON.stringify({ checks: { 'price-spikes': { threshold: 0 } } }));
-    const badConfig = await larder(['check'], { LARDER_CONFIG: 'bad.json' });
     expect(badConfig.code).toBe(2);
     expect(badConfig.stderr).toContain('checks.price-spikes.threshold: expected a number > 0');
-    const noReason = await larder(['waive', '--check', 'units-sanity']);
     expect(noReason.code).toBe(2);
     expect(noReason.stderr).toMatch(/--reason <text> is required/);
   });

@@ -1,4 +1,5 @@
 import { type ChildProcess, spawn } from 'node:child_process';
+import { SMALL_SET } from './chain-fixture.js';
 import { mkdtempSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join, resolve } from 'node:path';
@@ -72,4 +73,21 @@ export async function waitFor<T>(
     if (Date.now() - t0 > ms) throw new Error(`timed out after ${ms} ms waiting for ${what}`);
     await new Promise((r) => setTimeout(r, 50));
   }
+}
+
+/** A config for runner tests: the small set, the test's own Redis prefix, fast leases. */
+export function runnerConfig(
+  schema: string,
+  pipeline: Record<string, unknown> = {},
+  extra: Record<string, unknown> = {},
+) {
+  return {
+    redis: { prefix: schema },
+    sets: [SMALL_SET],
+    ...extra,
+    pipeline: {
+      workers: { concurrency: 2, heartbeatSeconds: 0.2, timeoutSeconds: 1, pollSeconds: 0.1 },
+      ...pipeline,
+    },
+  };
 }

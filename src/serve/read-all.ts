@@ -1,0 +1,86 @@
+import { LarderError } from '../db/errors.js';
+import { chunks, type FeatureCache } from '../publish/feature-cache.js';
+import { type KeyLayout, splitItems, unpackInto } from '../publish/layout.js';
+import { NotFoundError } from '../publish/snapshot-catalogue.js';
+import { BadRequestError, type SeriesBatch } from './read-types.js';
+import type { ViewResolver } from './version-view.js';
+
+export interface ReadAllOptions {
+  readonly set: string;
+  /** Series per batch (one MGET each), default 200. */
+  readonly batchSize?: number;
+  /** MGETs in flight at once, default 2. */
+  readonly inflight?: number;
+}
+
+/**
+ * Every series of the set's current version, from the cache only (never PostgreSQL), in batches:
+ * the version is fixed when the stream starts, so a publish meanwhile does not mix versions in;
+ * the old version stays readable for the grace period. Store index keys give the series of
+ * each store (no SCAN, which a Cluster cannot do as one command); each batch is one MGET of one
+ * store's slot, decoded by one byte copy per series into the batch's Float32Array.
+ */
+export async function* readAllSeries(
+  cache: FeatureCache,
+  layout: KeyLayout,
+  resolve: ViewResolver,
+  o: ReadAllOptions,
+): AsyncGenerator<SeriesBatch> {
+  const batchSize = o.batchSize ?? 200;
+  const inflight = Math.max(1, o.inflight ?? 2);
+  if (!/^[a-z][a-z0-9_]{0,62}$/.test(o.set)) throw new BadRequestError(`set '${o.set}' is not a set name`);
+  if (!Number.isInteger(batchSize) || batchSize < 1)
+    throw new BadRequestError('batchSize must be a positive integer');
+  const view = await resolve(o.set, true);
+  if (!view) throw new NotFoundError('UNKNOWN_SET', `set '${o.set}' has no current version in the cache`);
+  const { manifest, version, stride } = view;
+  const lists = await cache.getStrings(
+    manifest.stores.map((st) => layout.storeIndex(o.set, version, st.store)),
+  );
+  const expired = () =>
+    new LarderError(
+      'VERSION_EXPIRED',
+      `version ${version} of set '${o.set}' expired while being read: read again`,
+    );
+  function* tasks() {
+    for (const [i, st] of manifest.stores.entries()) {
+      const items = splitItems(lists[i] ?? '');
+      if (items.length !== st.series) throw expired();
+      for (const part of chunks(items, batchSize)) yield { store: st.store, items: part };
+    }
+  }
+  const fetch = async (t: { store: string; items: string[] }): Promise<SeriesBatch> => {
+    const bufs = await cache.getBuffers(t.items.map((it) => layout.series(o.set, version, t.store, it)));
+    const values = new Float32Array(t.items.length * stride);
+    bufs.forEach((b, j) => {
+      if (!b || b.byteLength !== stride * 4) throw expired();
+      unpackInto(b, values, j * stride);
+    });
+    return {
+      set: o.set,
+      version,
+      cutoff: manifest.cutoff,
+      firstDay: manifest.firstDay,
+      horizon: manifest.horizon,
+      columns: view.names,
+      items: t.items,
+      stores: new Array<string>(t.items.length).fill(t.store),
+      values,
+    };
+  };
+  const queue: Promise<SeriesBatch>[] = [];
+  const push = (p: Promise<SeriesBatch>) => {
+    p.catch(() => {}); // awaited below; this only keeps an early exit from leaving it unhandled
+    queue.push(p);
+  };
+  const it = tasks();
+  for (let n = it.next(); ; ) {
+    while (queue.length < inflight && !n.done) {
+      push(fetch(n.value));
+      n = it.next();
+    }
+    const next = queue.shift();
+    if (!next) return;
+    yield await next;
+  }
+}
