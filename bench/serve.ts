@@ -1,0 +1,274 @@
+/**
+ * Serving benchmark: `npm run bench -- serve [--series 30000] [--horizon 28] [--features 40]
+ *   [--set NAME --cutoff DAY] [--rate 2000] [--duration 20] [--read-seconds 5]`
+ *
+ * Needs DATABASE_URL and REDIS_URL (default redis://127.0.0.1:6379). Without --set it builds a
+ * synthetic snapshot in its own schema (bench_serve), dropped afterwards. Measures, in one run:
+ *   (a) client batched reads of 100 series (vectors/s) against `redis-benchmark -t get -P 16`
+ *       with the same payload size (target >= 0.25x its ops/s); readAll series/s (>= 200k/s);
+ *   (b) HTTP single-series reads at a fixed rate with autocannon: p50 / p99 (target p99 <= 2 ms);
+ *   (c) Redis memory per series (MEMORY USAGE sampled, and the used_memory delta) against the
+ *       packed payload (target <= 1.3x);
+ *   (d) publish time for all series.
+ */
+import { type ChildProcess, execFileSync, spawn } from 'node:child_process';
+import { mkdtempSync, rmSync, writeFileSync } from 'node:fs';
+import { tmpdir } from 'node:os';
+import { join } from 'node:path';
+import { setTimeout as sleep } from 'node:timers/promises';
+import { parseArgs } from 'node:util';
+import autocannon from 'autocannon';
+import { Redis } from 'ioredis';
+import { parseConfig } from '../src/config/config.js';
+import { readEnv } from '../src/config/env.js';
+import { openDatabase } from '../src/db/open.js';
+import { KeyLayout } from '../src/publish/layout.js';
+import { publishSnapshot } from '../src/publish/publish-snapshot.js';
+import { createRedisCache } from '../src/publish/redis-cache.js';
+import { createReader } from '../src/serve/reader.js';
+import { freePort } from '../tests/helpers/redis-process.js';
+import { createSnapshotFixture } from '../tests/helpers/snapshot-fixture.js';
+
+const PREFIX = 'bench_serve';
+const SCHEMA = 'bench_serve';
+const TOKEN = 'bench-serve-token-0123456789abcdef';
+
+function percentile(sorted: Float64Array, p: number): number {
+  return sorted[Math.min(sorted.length - 1, Math.floor((p / 100) * sorted.length))] ?? Number.NaN;
+}
+
+async function deletePrefix(redis: Redis, pattern: string): Promise<void> {
+  let cursor = '0';
+  do {
+    const [next, keys] = await redis.scan(cursor, 'MATCH', pattern, 'COUNT', 2000);
+    cursor = next;
+    if (keys.length) await redis.unlink(...keys);
+  } while (cursor !== '0');
+}
+
+export async function main(argv: string[]): Promise<void> {
+  const { values: o } = parseArgs({
+    args: argv,
+    options: {
+      series: { type: 'string', default: '30000' },
+      horizon: { type: 'string', default: '28' },
+      features: { type: 'string', default: '40' },
+      set: { type: 'string' },
+      cutoff: { type: 'string' },
+      rate: { type: 'string', default: '2000' },
+      duration: { type: 'string', default: '20' },
+      'read-seconds': { type: 'string', default: '5' },
+    },
+  });
+  const env = readEnv();
+  if (!env.DATABASE_URL) throw new Error('bench serve needs DATABASE_URL (a PostgreSQL server)');
+  const redisUrl = env.REDIS_URL ?? 'redis://127.0.0.1:6379';
+  const synthetic = !o.set;
+  const schema = synthetic ? SCHEMA : (env.LARDER_SCHEMA ?? 'larder');
+  const config = parseConfig(
+    {
+      database: { url: env.DATABASE_URL, schema },
+      redis: { url: redisUrl, prefix: PREFIX },
+      serve: { tokens: [TOKEN] },
+    },
+    'bench',
+  );
+  const out = (s: string) => process.stdout.write(`${s}\n`);
+  if (synthetic) {
+    const admin = await openDatabase(config, { migrate: false, poolSize: 1 });
+    await admin.exec(`DROP SCHEMA IF EXISTS ${SCHEMA} CASCADE`);
+    await admin.close();
+  }
+  const db = await openDatabase(config, { poolSize: 4 });
+  const raw = new Redis(redisUrl);
+  const cache = createRedisCache({ url: redisUrl, commandTimeoutMs: 5000 });
+  await cache.waitReady(5000);
+  const tmp = mkdtempSync(join(tmpdir(), 'larder-bench-'));
+  let server: ChildProcess | undefined;
+  try {
+    let set = o.set ?? 'bench';
+    let cutoff = o.cutoff ?? '2024-03-31';
+    if (synthetic) {
+      const n = Number(o.series);
+      const stores = Math.max(1, Math.round(n / 3000));
+      const t0 = performance.now();
+      const fx = await createSnapshotFixture(db, {
+        set,
+        cutoff,
+        stores,
+        itemsPerStore: Math.ceil(n / stores),
+        horizon: Number(o.horizon),
+        features: Number(o.features),
+        trainDays: 1,
+      });
+      set = fx.set;
+      cutoff = fx.cutoff;
+      out(
+        `synthetic snapshot: ${fx.series.length} series x ${fx.horizon} days x ${fx.columns.length} features ` +
+          `(${((performance.now() - t0) / 1000).toFixed(1)} s to build)`,
+      );
+    }
+    await deletePrefix(raw, `${PREFIX}:*`);
+    const usedBefore = Number(/used_memory:(\d+)/.exec(await raw.info('memory'))![1]);
+
+    // (d) publish
+    const pub = await publishSnapshot(db, cache, config, { set, cutoff });
+    const usedAfter = Number(/used_memory:(\d+)/.exec(await raw.info('memory'))![1]);
+    out(
+      `(d) publish: ${pub.keys} series in ${pub.seconds.toFixed(2)} s (${Math.round(pub.keys / pub.seconds)} series/s, ` +
+        `${(pub.bytes / 1e6).toFixed(1)} MB)`,
+    );
+
+    // (c) memory per series
+    const reader = await createReader({ config, cache, db });
+    const info = await reader.describe(set);
+    const payload = info.horizon * info.columns.length * 4;
+    const layout = new KeyLayout(PREFIX);
+    const sampleKeys: string[] = [];
+    for await (const b of reader.readAll({ set, batchSize: 1000 })) {
+      for (let i = 0; i < b.items.length && sampleKeys.length < 2000; i += 7) {
+        sampleKeys.push(layout.series(set, pub.version, b.stores[i]!, b.items[i]!));
+      }
+    }
+    let usage = 0;
+    for (const k of sampleKeys) usage += Number(await raw.call('MEMORY', 'USAGE', k, 'SAMPLES', '0'));
+    const perKey = usage / sampleKeys.length;
+    const perSeriesDelta = (usedAfter - usedBefore) / pub.keys;
+    out(
+      `(c) memory: payload ${payload} B; MEMORY USAGE ${perKey.toFixed(0)} B/key (${(perKey / payload).toFixed(3)}x), ` +
+        `used_memory delta ${perSeriesDelta.toFixed(0)} B/series (${(perSeriesDelta / payload).toFixed(3)}x)  [target <= 1.3x]`,
+    );
+
+    // (a) reference: redis-benchmark GET with the same payload, keys populated first (db 9).
+    const u = new URL(redisUrl);
+    const rb = (test: string, n: number) =>
+      execFileSync(
+        'redis-benchmark',
+        [
+          '-h',
+          u.hostname,
+          '-p',
+          u.port || '6379',
+          '--dbnum',
+          '9',
+          '-t',
+          test,
+          '-P',
+          '16',
+          '-d',
+          String(payload),
+          '-n',
+          String(n),
+          '-r',
+          '30000',
+          '-q',
+        ],
+        { encoding: 'utf8' },
+      );
+    rb('set', 60000);
+    const rbOut = rb('get', 400000);
+    const rbOps = Number(/GET: ([\d.]+) requests per second/.exec(rbOut)?.[1]);
+    const db9 = new Redis(redisUrl, { db: 9 });
+    await deletePrefix(db9, 'key:*');
+    db9.disconnect();
+
+    const all: { item: string; store: string }[] = [];
+    const t1 = performance.now();
+    for await (const b of reader.readAll({ set, batchSize: 200 })) {
+      for (let i = 0; i < b.items.length; i++) all.push({ item: b.items[i]!, store: b.stores[i]! });
+    }
+    const readAllRate = all.length / ((performance.now() - t1) / 1000);
+    const seconds = Number(o['read-seconds']);
+    const pick = () => {
+      const s = all[Math.floor(Math.random() * all.length)]!;
+      return { set, item: s.item, store: s.store };
+    };
+    /** Batches of 100 random series for `seconds`, `inflight` at a time; vectors per second. */
+    const batchRun = async (read: (reqs: ReturnType<typeof pick>[]) => Promise<unknown>, inflight = 1) => {
+      let n = 0;
+      const end = performance.now() + seconds * 1000;
+      const worker = async () => {
+        while (performance.now() < end) {
+          await read(Array.from({ length: 100 }, pick));
+          n += 100;
+        }
+      };
+      const t = performance.now();
+      await Promise.all(Array.from({ length: inflight }, worker));
+      return n / ((performance.now() - t) / 1000);
+    };
+    const vec = await batchRun((reqs) => reader.getVectors(set, reqs));
+    const vec4 = await batchRun((reqs) => reader.getVectors(set, reqs), 4);
+    const named = await batchRun((reqs) => reader.getMany(reqs));
+    const ratio = (x: number) => `${(x / rbOps).toFixed(3)}x`;
+    out(`(a) redis-benchmark GET -P 16 -d ${payload}: ${Math.round(rbOps)} ops/s`);
+    out(
+      `    getVectors(100): ${Math.round(vec)} vectors/s (${ratio(vec)}); 4 batches in flight: ` +
+        `${Math.round(vec4)} vectors/s (${ratio(vec4)})  [target >= 0.25x]`,
+    );
+    out(`    getMany(100), named features per day: ${Math.round(named)} series/s (${ratio(named)})`);
+    out(
+      `    readAll: ${Math.round(readAllRate)} series/s (${ratio(readAllRate)})  [target >= 200000 series/s]`,
+    );
+    await reader.close();
+
+    // (b) HTTP: the real `larder serve` in its own process, autocannon at a fixed rate.
+    const port = await freePort();
+    const cfgFile = join(tmp, 'larder.config.json');
+    writeFileSync(
+      cfgFile,
+      JSON.stringify({ database: { schema }, redis: { prefix: PREFIX }, serve: { tokens: [TOKEN] } }),
+    );
+    server = spawn(process.execPath, ['bin/larder.js', '-c', cfgFile, 'serve', '--port', String(port)], {
+      env: { ...process.env, DATABASE_URL: env.DATABASE_URL, REDIS_URL: redisUrl },
+      stdio: ['ignore', 'pipe', 'inherit'],
+    });
+    const base = `http://127.0.0.1:${port}`;
+    for (let i = 0; ; i++) {
+      try {
+        if ((await fetch(`${base}/health`)).ok) break;
+      } catch {}
+      if (i > 200) throw new Error('larder serve did not come up');
+      await sleep(100);
+    }
+    const paths = all.map(
+      (s) => `/v1/sets/${set}/features?${new URLSearchParams({ item: s.item, store: s.store })}`,
+    );
+    const warm = await fetch(`${base}${paths[0]}`, { headers: { authorization: `Bearer ${TOKEN}` } });
+    if (!warm.ok) throw new Error(`warm-up read failed: ${warm.status} ${await warm.text()}`);
+    const latencies: number[] = [];
+    const rate = Number(o.rate);
+    const instance = autocannon({
+      url: base,
+      connections: 20,
+      overallRate: rate,
+      duration: Number(o.duration),
+      headers: { authorization: `Bearer ${TOKEN}` },
+      requests: [
+        { setupRequest: (req) => ({ ...req, path: paths[Math.floor(Math.random() * paths.length)]! }) },
+      ],
+    });
+    instance.on('response', (_c: unknown, status: number, _b: number, ms: number) => {
+      if (status === 200) latencies.push(ms);
+    });
+    const result = await instance;
+    const sorted = Float64Array.from(latencies).sort();
+    out(
+      `(b) HTTP at ${rate} req/s for ${o.duration} s: ${result.requests.total} requests, ${result.non2xx} non-2xx, ` +
+        `${result.errors} errors; latency p50 ${percentile(sorted, 50).toFixed(3)} ms, p99 ${percentile(sorted, 99).toFixed(3)} ms, ` +
+        `p99.9 ${percentile(sorted, 99.9).toFixed(3)} ms, max ${sorted.at(-1)?.toFixed(3)} ms  [target p99 <= 2 ms]`,
+    );
+  } finally {
+    if (server && server.exitCode === null) {
+      const exited = new Promise((r) => server!.once('exit', r));
+      server.kill('SIGTERM');
+      await exited;
+    }
+    await deletePrefix(raw, `${PREFIX}:*`);
+    raw.disconnect();
+    await cache.close();
+    if (synthetic) await db.exec(`DROP SCHEMA IF EXISTS ${SCHEMA} CASCADE`);
+    await db.close();
+    rmSync(tmp, { recursive: true, force: true });
+  }
+}
