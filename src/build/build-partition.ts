@@ -9,6 +9,7 @@ import type { ResolvedFeatureSet } from '../features/feature-set.js';
 import type { GroupLevel } from '../features/group-levels.js';
 import { stockoutMask } from '../features/stockout-mask.js';
 import { type BuildPlan, planFeatureSet } from './build-plan.js';
+import { computeSeriesFeatures } from './compute-series.js';
 import { readStagedGroups } from './group-stage.js';
 import {
   type PartitionSeries,
@@ -145,12 +146,7 @@ async function* snapshotRows(
       keys: x.keys,
       itemId: x.hierarchy.itemId,
     };
-    const cols: Float64Array[] = [];
-    for (const f of set.families) {
-      const out = f.columns.map(() => new Float64Array(rows.n));
-      f.family.compute(f.params, set.shape, input, data.env, out);
-      cols.push(...out);
-    }
+    const cols = computeSeriesFeatures(set, input, data.env);
     const origin = rows.origin;
     for (let r = 0; r < rows.n; r++) {
       w.row(5 + F);
