@@ -3,6 +3,7 @@ import type { Config } from '../config/config.js';
 import type { Db } from '../db/database.js';
 import { generateStep } from './steps/generate-step.js';
 import { loadStep } from './steps/load-step.js';
+import { publishStep } from './steps/publish-step.js';
 import { resetStep } from './steps/reset-step.js';
 import { summaryStep } from './steps/summary-step.js';
 
@@ -23,7 +24,7 @@ export interface DemoStep {
 }
 
 /** The demo's steps in order; each pipeline stage adds its own step here. */
-export const DEMO_STEPS: DemoStep[] = [generateStep, resetStep, loadStep, summaryStep];
+export const DEMO_STEPS: DemoStep[] = [generateStep, resetStep, loadStep, summaryStep, publishStep];
 
 export interface DemoOptions {
   readonly dataDir?: string;

@@ -80,16 +80,13 @@ export function parseUnits(raw: string): number {
   return out < INT4_MIN || out > INT4_MAX ? Number.NaN : out;
 }
 
-const NUMBER = /^[+-]?(\d+(\.\d*)?|\.\d+)([eE][+-]?\d+)?$/;
-
 /** Why `raw` is not valid units (call only after `parseUnits` returned NaN). */
 export function unitsProblem(raw: string): string {
   const v = raw.trim();
   if (v === '') return 'is empty';
-  if (!NUMBER.test(v)) return `${show(raw)} is not an integer`;
-  const num = Number(v);
-  if (!Number.isInteger(num)) return `${show(raw)} is not an integer (fractional units cannot be stored)`;
-  return `${show(raw)} is outside the int4 range (${INT4_MIN} to ${INT4_MAX})`;
+  if (/^[+-]?\d+(\.0*)?$/.test(v)) return `${show(raw)} is outside the int4 range (${INT4_MIN} to ${INT4_MAX})`;
+  if (/^[+-]?(\d+\.\d*|\.\d+)$/.test(v)) return `${show(raw)} is not an integer (fractional units cannot be stored)`;
+  return `${show(raw)} is not an integer`;
 }
 
 /**

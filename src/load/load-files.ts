@@ -57,6 +57,8 @@ export interface LoadOptions {
   readonly workerMinBytes?: number;
   /** Read chunk size in bytes. */
   readonly chunkSize?: number;
+  /** Bytes per COPY statement (default: one COPY on a server, 32 MB embedded). */
+  readonly segmentBytes?: number;
 }
 
 /** rejected_rows keeps this many rejects per batch; load_batches.rows_rejected counts all. */
@@ -137,7 +139,7 @@ async function loadOne(
         series,
         maxRejects,
         recordLimit: RECORDED_REJECTS,
-        segmentBytes: db.kind === 'embedded' ? EMBEDDED_SEGMENT_BYTES : Number.POSITIVE_INFINITY,
+        segmentBytes: opts.segmentBytes ?? (db.kind === 'embedded' ? EMBEDDED_SEGMENT_BYTES : Number.POSITIVE_INFINITY),
         chunkSize: opts.chunkSize,
       };
       const copySql = direct ? sql.copyTargetSql(spec) : sql.copyStageSql(spec);
@@ -158,7 +160,7 @@ async function loadOne(
       let rejected = res.rejectCount;
       let stored = copied;
       let conflicts: RejectRow[] = [];
-      if (!direct && rejected <= maxRejects) {
+      if (!direct) {
         if (mode === 'append') {
           const found = await findConflicts(tx, target);
           conflicts = found.rows;

@@ -21,7 +21,7 @@ export interface ParseJob {
   readonly staged: boolean;
   /** Sales only: the stored series. */
   readonly series?: SeriesData | undefined;
-  /** Beyond this many rejects the batch is lost: stop writing rows, keep counting. */
+  /** Beyond this many rejects the batch is lost: direct rows stop, rejects are still counted. */
   readonly maxRejects: number;
   /** Rejects kept with their detail (rejected_rows); later ones are only counted. */
   readonly recordLimit: number;
@@ -103,8 +103,10 @@ async function pass(
   let lastDay = Number.NEGATIVE_INFINITY;
   const rejects: RejectEntry[] = [];
   const ctx: EncodeContext = {
+    // A batch over its limit is lost; direct rows stop there, staged rows still go on so the
+    // database can name the stored keys the file repeats (all of a file's problems in one run).
     get writer() {
-      return rejectCount > job.maxRejects ? null : writer;
+      return !job.staged && rejectCount > job.maxRejects ? null : writer;
     },
     staged: job.staged,
     accepted: hooks.accepted ?? null,
