@@ -84,8 +84,10 @@ export function parseUnits(raw: string): number {
 export function unitsProblem(raw: string): string {
   const v = raw.trim();
   if (v === '') return 'is empty';
-  if (/^[+-]?\d+(\.0*)?$/.test(v)) return `${show(raw)} is outside the int4 range (${INT4_MIN} to ${INT4_MAX})`;
-  if (/^[+-]?(\d+\.\d*|\.\d+)$/.test(v)) return `${show(raw)} is not an integer (fractional units cannot be stored)`;
+  if (/^[+-]?\d+(\.0*)?$/.test(v))
+    return `${show(raw)} is outside the int4 range (${INT4_MIN} to ${INT4_MAX})`;
+  if (/^[+-]?(\d+\.\d*|\.\d+)$/.test(v))
+    return `${show(raw)} is not an integer (fractional units cannot be stored)`;
   return `${show(raw)} is not an integer`;
 }
 

@@ -139,7 +139,8 @@ async function loadOne(
         series,
         maxRejects,
         recordLimit: RECORDED_REJECTS,
-        segmentBytes: opts.segmentBytes ?? (db.kind === 'embedded' ? EMBEDDED_SEGMENT_BYTES : Number.POSITIVE_INFINITY),
+        segmentBytes:
+          opts.segmentBytes ?? (db.kind === 'embedded' ? EMBEDDED_SEGMENT_BYTES : Number.POSITIVE_INFINITY),
         chunkSize: opts.chunkSize,
       };
       const copySql = direct ? sql.copyTargetSql(spec) : sql.copyStageSql(spec);
