@@ -219,7 +219,7 @@ describe('no cell depends on sales after its boundary', () => {
     const leaky = unsafeFeatureSet({
       ...def,
       families: { windows: [{ size: 6, shift: 3, stats: ['mean'], lead: 2 }] },
-    } as typeof def);
+    } as unknown as typeof def);
     const store = fc.sample(storeArb, { numRuns: 1, seed: 7 })[0]!;
     expect(leakedCells(leaky, store, perturb(store, 90, 1), 110, 70, 90).bad.length).toBeGreaterThan(0);
   });
