@@ -25,7 +25,10 @@ export const publishStep: DemoStep = {
       ctx.out('  no snapshot catalogue: the demo has no build step yet, nothing to publish');
       return;
     }
-    if (!newest) throw new LarderError('DEMO', 'the demo built no snapshot to publish');
+    if (!newest) {
+      ctx.out('  the snapshot catalogue is empty: no build ran before this step, nothing to publish');
+      return;
+    }
     const cache = openCache(config);
     try {
       const res = await publishSnapshot(db, cache, config, { set: newest.set_name, cutoff: newest.cutoff });
