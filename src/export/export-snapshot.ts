@@ -98,6 +98,8 @@ const UNORDERED = new Set<string>();
 interface Sink {
   write(b: ExportBatch): void | Promise<void>;
   finish(): Promise<void>;
+  /** Releases what the sink holds (a worker) after a failure. */
+  abort?(): Promise<void>;
 }
 
 function openSink(
@@ -145,13 +147,18 @@ export async function exportSnapshot(db: Db, _config: Config, opts: ExportOption
         const sink = openSink(format, file, layout, ids, info);
         let rowCount = 0;
         const mode = UNORDERED.has(tableKey) ? 'sorted' : 'physical';
-        for await (const b of readSnapshot(db, tx, layout, mode)) {
-          await sink.write(b);
-          rowCount += b.length;
+        try {
+          for await (const b of readSnapshot(db, tx, layout, mode)) {
+            await sink.write(b);
+            rowCount += b.length;
+          }
+          // An empty export is still a valid file: the schema and zero rows.
+          if (rowCount === 0) await sink.write(emptyBatch(layout));
+          await sink.finish();
+        } catch (err) {
+          await sink.abort?.();
+          throw err;
         }
-        // An empty export is still a valid file: the schema and zero rows.
-        if (rowCount === 0) await sink.write(emptyBatch(layout));
-        await sink.finish();
         return { ...snapshotManifest(info, layout), rowCount };
       });
       const sha256 = file.commit();

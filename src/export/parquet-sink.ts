@@ -1,5 +1,6 @@
+import { createRequire } from 'node:module';
+import { Worker } from 'node:worker_threads';
 import { type Schema, Table, tableToIPC } from 'apache-arrow';
-import * as pw from 'parquet-wasm';
 import { type SeriesIds, toRecordBatch } from './arrow-batch.js';
 import type { HashingFile } from './hashing-file.js';
 import type { ExportBatch } from './snapshot-reader.js';
@@ -11,94 +12,155 @@ import type { ExportBatch } from './snapshot-reader.js';
 export const PARQUET_ROW_GROUP_ROWS = 131_072;
 
 /**
- * Parquet through parquet-wasm (the Rust Arrow/Parquet writer compiled to WebAssembly): record
- * batches go in as Arrow IPC, row groups come out as bytes and are written to the file as they
- * are produced. Chosen over the pure-JS hyparquet-writer after measuring both on 200k rows x 42
- * columns here: 260k vs 110k rows/s, and a 2.7x smaller file (dictionary encoding).
+ * The worker's code, plain CommonJS so it needs no TypeScript loader: it feeds Arrow IPC batches
+ * into parquet-wasm's streaming writer and posts the Parquet bytes back as they are produced.
+ * Each batch is acknowledged once the writer has taken it, which bounds what is in flight.
+ */
+const WORKER_SOURCE = `
+const { parentPort, workerData } = require('node:worker_threads');
+const pw = require(workerData.module);
+let ctrl;
+let wake = null;
+const input = new ReadableStream({
+  start(c) { ctrl = c; },
+  pull() { const w = wake; wake = null; if (w) w(); },
+}, { highWaterMark: 1 });
+const props = new pw.WriterPropertiesBuilder()
+  .setCompression(pw.Compression.SNAPPY)
+  .setMaxRowGroupSize(workerData.rowGroupRows)
+  .setCreatedBy(workerData.createdBy)
+  .setKeyValueMetadata(new Map(workerData.metadata))
+  .build();
+(async () => {
+  const out = await pw.transformParquetStream(input, props);
+  const reader = out.getReader();
+  for (;;) {
+    const { done, value } = await reader.read();
+    if (done) break;
+    const copy = value.slice();
+    parentPort.postMessage({ type: 'bytes', data: copy }, [copy.buffer]);
+  }
+  parentPort.postMessage({ type: 'done' });
+})().catch((err) => parentPort.postMessage({ type: 'error', message: String((err && err.message) || err) }));
+parentPort.on('message', async (m) => {
+  try {
+    if (m.type === 'end') { ctrl.close(); return; }
+    const table = pw.Table.fromIPCStream(new Uint8Array(m.data));
+    try { for (const rb of table.recordBatches()) ctrl.enqueue(rb); } finally { table.free(); }
+    while ((ctrl.desiredSize ?? 1) <= 0) await new Promise((r) => { wake = r; });
+    parentPort.postMessage({ type: 'ack' });
+  } catch (err) {
+    parentPort.postMessage({ type: 'error', message: String((err && err.message) || err) });
+  }
+});
+`;
+
+type FromWorker =
+  | { type: 'bytes'; data: Uint8Array }
+  | { type: 'ack' }
+  | { type: 'done' }
+  | { type: 'error'; message: string };
+
+/**
+ * Parquet through parquet-wasm (the Rust Arrow/Parquet writer compiled to WebAssembly), run in a
+ * worker thread so encoding overlaps with reading and decoding the next batch from PostgreSQL.
+ * Chosen over the pure-JS hyparquet-writer after measuring both on 200k rows x 42 columns here:
+ * 260k vs 110k rows/s, and a 2.7x smaller file (dictionary encoding).
  *
  * The file carries no timestamp: `created_by` is fixed and the key-value metadata holds only the
  * snapshot's identity, as a single JSON entry (the writer keeps entries in a hash map, whose order
  * changes from run to run), so the same snapshot gives the same bytes.
  */
 export class ParquetSink {
-  private controller!: ReadableStreamDefaultController<pw.RecordBatch>;
-  private wake: (() => void) | null = null;
-  private failure: unknown = null;
-  private readonly pumped: Promise<void>;
+  private readonly worker: Worker;
+  private failure: Error | null = null;
+  private pendingAck: { resolve: () => void } | null = null;
+  private readonly done: Promise<void>;
+  private inFlight = false;
+  private finished = false;
 
   constructor(
-    file: HashingFile,
+    private readonly file: HashingFile,
     private readonly schema: Schema,
     private readonly ids: SeriesIds,
     metadata: Readonly<Record<string, string>>,
   ) {
-    const input = new ReadableStream<pw.RecordBatch>(
-      {
-        start: (c) => {
-          this.controller = c;
-        },
-        pull: () => this.resume(),
+    this.worker = new Worker(WORKER_SOURCE, {
+      eval: true,
+      workerData: {
+        module: createRequire(import.meta.url).resolve('parquet-wasm'),
+        rowGroupRows: PARQUET_ROW_GROUP_ROWS,
+        createdBy: 'larder export',
+        metadata: [['larder.snapshot', JSON.stringify(metadata)]],
       },
-      { highWaterMark: 1 },
-    );
-    const props = new pw.WriterPropertiesBuilder()
-      .setCompression(pw.Compression.SNAPPY)
-      .setMaxRowGroupSize(PARQUET_ROW_GROUP_ROWS)
-      .setCreatedBy('larder export')
-      .setKeyValueMetadata(new Map([['larder.snapshot', JSON.stringify(metadata)]]))
-      .build();
-    this.pumped = (async () => {
-      const out = (await pw.transformParquetStream(input, props)) as ReadableStream<Uint8Array>;
-      const reader = out.getReader();
-      for (;;) {
-        const { done, value } = await reader.read();
-        if (done) break;
-        file.write(value);
-      }
-    })().catch((err: unknown) => {
-      this.failure = err;
-      this.resume();
+    });
+    this.done = new Promise<void>((resolve) => {
+      this.worker.on('message', (m: FromWorker) => {
+        if (m.type === 'bytes') {
+          try {
+            this.file.write(m.data);
+          } catch (err) {
+            this.fail(err as Error);
+          }
+        } else if (m.type === 'ack') this.settleAck();
+        else if (m.type === 'done') {
+          this.finished = true;
+          resolve();
+        } else this.fail(new Error(`parquet writer failed: ${m.message}`));
+      });
+      this.worker.on('error', (err) => this.fail(err));
+      this.worker.on('exit', () => {
+        if (!this.finished) this.fail(new Error('parquet writer stopped before the file was complete'));
+        resolve();
+      });
     });
   }
 
-  private resume(): void {
-    const w = this.wake;
-    this.wake = null;
-    w?.();
+  private fail(err: Error): void {
+    this.failure ??= err;
+    this.settleAck();
+  }
+
+  private settleAck(): void {
+    const p = this.pendingAck;
+    this.pendingAck = null;
+    this.inFlight = false;
+    p?.resolve();
   }
 
   private check(): void {
-    if (this.failure !== null) {
-      throw new Error(`parquet writer failed: ${(this.failure as Error)?.message ?? String(this.failure)}`, {
-        cause: this.failure,
+    if (this.failure) throw this.failure;
+  }
+
+  private async previous(): Promise<void> {
+    if (this.inFlight) {
+      await new Promise<void>((resolve) => {
+        this.pendingAck = { resolve };
       });
     }
+    this.check();
   }
 
-  private enqueueArrow(table: Table): void {
-    const wasm = pw.Table.fromIPCStream(tableToIPC(table, 'stream'));
-    try {
-      for (const rb of wasm.recordBatches()) this.controller.enqueue(rb);
-    } finally {
-      wasm.free();
-    }
-  }
-
-  /** Hands one batch to the writer, waiting while it is still busy with the previous one. */
+  /** Encodes one batch as Arrow IPC here and hands it over once the previous one was taken. */
   async write(b: ExportBatch): Promise<void> {
     this.check();
-    this.enqueueArrow(new Table([toRecordBatch(this.schema, this.ids, b)]));
-    while ((this.controller.desiredSize ?? 1) <= 0 && this.failure === null) {
-      await new Promise<void>((r) => {
-        this.wake = r;
-      });
-    }
-    this.check();
+    const ipc = tableToIPC(new Table([toRecordBatch(this.schema, this.ids, b)]), 'stream');
+    const own = ipc.byteOffset === 0 && ipc.byteLength === ipc.buffer.byteLength ? ipc : ipc.slice();
+    await this.previous();
+    this.inFlight = true;
+    this.worker.postMessage({ type: 'batch', data: own.buffer }, [own.buffer as ArrayBuffer]);
   }
 
   async finish(): Promise<void> {
-    this.controller.close();
-    await this.pumped;
+    await this.previous();
+    this.worker.postMessage({ type: 'end' });
+    await this.done;
     this.check();
+    await this.worker.terminate();
+  }
+
+  /** Stops the worker after a failure elsewhere. */
+  async abort(): Promise<void> {
+    await this.worker.terminate();
   }
 }
