@@ -3,9 +3,12 @@ import { LarderError } from '../db/errors.js';
 import { type CommandModule, createContext } from './context.js';
 import * as build from './commands/build.js';
 import * as check from './commands/check.js';
+import * as exportCommand from './commands/export.js';
 import * as init from './commands/init.js';
 import * as load from './commands/load.js';
 import * as publish from './commands/publish.js';
+import * as scales from './commands/scales.js';
+import * as score from './commands/score.js';
 import * as run from './commands/run.js';
 import * as runs from './commands/runs.js';
 import * as schedule from './commands/schedule.js';
@@ -24,6 +27,9 @@ const COMMANDS: CommandModule[] = [
   sets,
   build,
   snapshots,
+  exportCommand,
+  scales,
+  score,
   publish,
   serve,
   run,
