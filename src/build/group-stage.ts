@@ -30,6 +30,23 @@ const RAW_KEYS: Record<string, { k1: string; k2: string }> = {
   total: { k1: "''::text", k2: 'NULL::text' },
 };
 
+/** SQL key of a series at a level, over series r, items i and stores st (as `groupKey`). */
+export function levelKeySql(level: GroupLevel): string {
+  const sep = `E'\\x1f'`;
+  switch (level) {
+    case 'store':
+      return 'r.store_id';
+    case 'store_category':
+      return `r.store_id || ${sep} || i.category_id`;
+    case 'store_department':
+      return `r.store_id || ${sep} || i.dept_id`;
+    case 'item_region':
+      return `r.item_id || ${sep} || st.region_id`;
+    default:
+      return RAW_KEYS[level]!.k1;
+  }
+}
+
 /** How a staged finer level maps to this one's key (g = the finer level's staged rows). */
 const DERIVE: Record<string, Record<string, { k1: string; join: string }>> = {
   item: { item_region: { k1: 'g.k1', join: '' } },

@@ -1,6 +1,7 @@
 import { Command, CommanderError } from 'commander';
 import { LarderError } from '../db/errors.js';
 import { type CommandModule, createContext } from './context.js';
+import * as audit from './commands/audit.js';
 import * as build from './commands/build.js';
 import * as check from './commands/check.js';
 import * as exportCommand from './commands/export.js';
@@ -27,6 +28,7 @@ const COMMANDS: CommandModule[] = [
   sets,
   build,
   snapshots,
+  audit,
   exportCommand,
   scales,
   score,
