@@ -111,17 +111,23 @@ export async function scoreForecasts(db: Db, config: Config, opts: ScoreOptions)
       : undefined;
     const horizon = user?.horizon ?? horizonGiven!;
 
-    const lastSales = (await tx.query<{ d: string | null }>('SELECT max(day)::text AS d FROM sales')).rows[0]
-      ?.d;
+    const ids = Int32Array.from(bottom, (b) => b.seriesId);
+    // One read of days C-6 .. C+H: the last week feeds the reference forecasts, the rest are actuals.
+    const window = await dailyMatrix(tx, cutoff, ids, c - 6, 7 + horizon);
     const needed = formatDay(c + horizon);
-    if (!lastSales || lastSales < needed) {
+    if (window.lastDay < c + horizon) {
+      const seen = window.lastDay > c ? formatDay(window.lastDay) : `${cutoff} or earlier`;
       throw new UsageError(
-        `actual sales end at ${lastSales ?? '(none)'}: scoring ${horizon} days after ${cutoff} needs sales up to ${needed}`,
+        `actual sales end at ${seen}: scoring ${horizon} days after ${cutoff} needs sales up to ${needed}`,
       );
     }
-    const ids = Int32Array.from(bottom, (b) => b.seriesId);
-    const actual = await dailyMatrix(tx, ids, c + 1, horizon);
-    const lastWeek = await dailyMatrix(tx, ids, c - 6, 7);
+    const lastWeek = new Float64Array(ids.length * 7);
+    const actual = new Float64Array(ids.length * horizon);
+    for (let i = 0; i < ids.length; i++) {
+      const row = window.values.subarray(i * (7 + horizon), (i + 1) * (7 + horizon));
+      lastWeek.set(row.subarray(0, 7), i * 7);
+      actual.set(row.subarray(7), i * horizon);
+    }
     const forecasts: Array<[string, Float64Array]> = [];
     if (user && source) forecasts.push([basename(source.path), user.values]);
     forecasts.push(['naive', naiveForecast(lastWeek, bottom.length, horizon)]);
@@ -258,28 +264,38 @@ async function evaluatedBottom(tx: DbSession, cutoff: string): Promise<BottomSer
   return r.rows.map((x) => ({ seriesId: x.series_id, ...x }));
 }
 
-/** Units per series for `days` days from `first` (missing rows are 0), streamed in binary. */
+/**
+ * Units of the evaluated series for `days` days from `first` (missing rows are 0), streamed in
+ * binary. A lateral read per series walks the sales primary key (series_id, day) instead of
+ * scanning every day of the chain's history.
+ */
 async function dailyMatrix(
   tx: DbSession,
+  cutoff: string,
   ids: Int32Array,
   first: number,
   days: number,
-): Promise<Float64Array> {
+): Promise<{ values: Float64Array; lastDay: number }> {
   const pos = new Map<number, number>();
   for (let i = 0; i < ids.length; i++) pos.set(ids[i]!, i);
-  const out = new Float64Array(ids.length * days);
+  const values = new Float64Array(ids.length * days);
+  // Days come from formatDay (digits and hyphens only), so they are safe as literals in COPY.
   const from = formatDay(first);
   const to = formatDay(first + days - 1);
-  // Days come from formatDay (digits and hyphens only), so they are safe as literals in COPY.
-  const sql = `COPY (SELECT series_id, day, units FROM sales WHERE day BETWEEN DATE '${from}' AND DATE '${to}') TO STDOUT (FORMAT binary)`;
+  const sql = `COPY (SELECT e.series_id, x.day, x.units FROM eval_scales e
+    CROSS JOIN LATERAL (SELECT day, units FROM sales WHERE series_id = e.series_id AND day BETWEEN DATE '${from}' AND DATE '${to}') x
+    WHERE e.cutoff = DATE '${cutoff}' AND e.level = 12 AND e.status <> 'no_sale') TO STDOUT (FORMAT binary)`;
+  let lastDay = Number.NEGATIVE_INFINITY;
   for await (const b of readCopyBinary(tx.copyTo(sql), ['int4', 'date', 'int4'])) {
     const sid = b.columns[0] as Int32Array;
     const day = b.columns[1] as Int32Array;
     const units = b.columns[2] as Int32Array;
     for (let r = 0; r < b.length; r++) {
       const i = pos.get(sid[r]!);
-      if (i !== undefined) out[i * days + day[r]! - first] = units[r]!;
+      if (i === undefined) continue;
+      values[i * days + day[r]! - first] = units[r]!;
+      if (day[r]! > lastDay) lastDay = day[r]!;
     }
   }
-  return out;
+  return { values, lastDay };
 }
