@@ -66,13 +66,21 @@ export interface LockOptions {
  * process dies, the server drops the connection and the locks with it. Keys are taken in sorted
  * order, so two runs over overlapping sets cannot deadlock. While `fn` runs the session is
  * probed; if it dies (pg_terminate_backend, a restart), the signal passed to `fn` aborts with
- * LockLostError, because another process may now hold the same run.
+ * LockLostError, because another process may now hold the same run. `verify` probes at once:
+ * the runner calls it before recording any step as done.
  */
+/** What the holder of run locks gets: a signal that aborts when they are lost, and a probe. */
+export interface HeldLocks {
+  readonly signal: AbortSignal;
+  /** Asks the server now whether every lock is still held; throws LockLostError if not. */
+  verify(): Promise<void>;
+}
+
 export async function withRunLocks<T>(
   lockDb: Db,
   keys: readonly string[],
   opts: LockOptions,
-  fn: (signal: AbortSignal) => Promise<T>,
+  fn: (held: HeldLocks) => Promise<T>,
 ): Promise<T> {
   const sorted = [...new Set(keys)].sort();
   return lockDb.session(async (s) => {
@@ -106,23 +114,29 @@ export async function withRunLocks<T>(
     }
 
     const ac = new AbortController();
-    const probe = setInterval(() => {
-      s.query<{ n: number }>(
-        `SELECT count(*)::int AS n FROM pg_locks WHERE pid = pg_backend_pid() AND locktype = 'advisory' AND granted`,
-      ).then(
-        (r) => {
-          if ((r.rows[0]?.n ?? 0) < taken.length) ac.abort(new LockLostError('the run lock was released'));
-        },
-        (err: unknown) =>
-          ac.abort(
-            new LockLostError(`the run lock's connection was lost: ${(err as Error).message}`, {
-              cause: err,
-            }),
-          ),
-      );
-    }, opts.probeMs ?? 2000);
+    const verify = async () => {
+      if (ac.signal.aborted) throw ac.signal.reason;
+      let n: number;
+      try {
+        n = (
+          await s.query<{ n: number }>(
+            `SELECT count(*)::int AS n FROM pg_locks WHERE pid = pg_backend_pid() AND locktype = 'advisory' AND granted`,
+          )
+        ).rows[0]!.n;
+      } catch (err) {
+        ac.abort(
+          new LockLostError(`the run lock's connection was lost: ${(err as Error).message}`, { cause: err }),
+        );
+        throw ac.signal.reason;
+      }
+      if (n < taken.length) {
+        ac.abort(new LockLostError('the run lock was released'));
+        throw ac.signal.reason;
+      }
+    };
+    const probe = setInterval(() => verify().catch(() => {}), opts.probeMs ?? 1000);
     try {
-      return await fn(ac.signal);
+      return await fn({ signal: ac.signal, verify });
     } finally {
       clearInterval(probe);
       if (!ac.signal.aborted) await unlockAll();

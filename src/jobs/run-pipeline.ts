@@ -4,7 +4,7 @@ import { UsageError } from '../db/errors.js';
 import type { PipelineStages, PipelineStep, PlannedSet, RunState, StepEnv } from './pipeline-step.js';
 import type { Reporter } from './progress.js';
 import { latestSalesDay, resolveCutoffSpec } from './resolve-cutoff.js';
-import { describeHolders, type LockHolder, runLockKey, withRunLocks } from './run-lock.js';
+import { describeHolders, type HeldLocks, type LockHolder, runLockKey, withRunLocks } from './run-lock.js';
 import {
   abandonStaleRuns,
   createRun,
@@ -148,7 +148,7 @@ export async function runPipeline(ctx: RunnerContext, req: RunRequest): Promise<
       onWait: async (holders) =>
         reporter.info(`waiting: ${sets.join(', ')} for ${cutoff} is being run by ${await describe(holders)}`),
     },
-    (lockSignal) => executeLocked(ctx, req, { cutoff, sets, load, lockSignal }),
+    (held) => executeLocked(ctx, req, { cutoff, sets, load, held }),
   );
 }
 
@@ -156,12 +156,13 @@ interface Locked {
   readonly cutoff: string;
   readonly sets: readonly string[];
   readonly load: Awaited<ReturnType<PipelineStages['loadWatched']>>;
-  readonly lockSignal: AbortSignal;
+  readonly held: HeldLocks;
 }
 
 async function executeLocked(ctx: RunnerContext, req: RunRequest, l: Locked): Promise<RunOutcome> {
   const { db, config, reporter, stages } = ctx;
-  const { cutoff, sets, load, lockSignal } = l;
+  const { cutoff, sets, load, held } = l;
+  const lockSignal = held.signal;
   for (const id of await abandonStaleRuns(db, cutoff, sets)) {
     reporter.warn(`run ${id} was left running by a process that stopped; recorded as failed`, { runId: id });
   }
@@ -170,8 +171,13 @@ async function executeLocked(ctx: RunnerContext, req: RunRequest, l: Locked): Pr
   for (const s of sets) plans.set(s, await stages.plan(db, config, s, cutoff));
   const inputs = Object.fromEntries([...plans].map(([s, p]) => [s, p.inputs]));
 
+  // A failed or interrupted run on the same inputs is taken up where it stopped; otherwise a set
+  // whose last completed run saw the same inputs, and whose snapshot still has them, is done.
+  const prev = req.force ? undefined : await latestRunFor(db, cutoff, sets);
+  const resumable =
+    prev && ['failed', 'blocked', 'interrupted'].includes(prev.status) && sameInputs(prev.inputs, inputs);
   const upToDate = new Set<string>();
-  if (!req.force) {
+  if (!req.force && !resumable) {
     for (const s of sets) {
       const last = await lastCompletedFor(db, s, cutoff);
       const snap = await stages.snapshotInputs(db, s, cutoff);
@@ -198,9 +204,6 @@ async function executeLocked(ctx: RunnerContext, req: RunRequest, l: Locked): Pr
     return { runId: run.runId, status: 'skipped', cutoff, sets, resumed: false, message };
   }
 
-  const prev = req.force ? undefined : await latestRunFor(db, cutoff, sets);
-  const resumable =
-    prev && ['failed', 'blocked', 'interrupted'].includes(prev.status) && sameInputs(prev.inputs, inputs);
   const run = resumable ? await resumeRun(db, prev.runId, ctx.holder) : await createRun(db, base);
   const resumed = !!resumable;
   const history = resumed ? await listSteps(db, run.runId) : [];
@@ -233,7 +236,10 @@ async function executeLocked(ctx: RunnerContext, req: RunRequest, l: Locked): Pr
   }
 
   const state: RunState = { plans };
-  for (const { seq, step, set } of stepSequence(config, stages.steps, sets)) {
+  const sequence = stepSequence(config, stages.steps, sets);
+  // The last step of each set: when it is done, so is the set (what "completed" means later).
+  const lastOfSet = new Set(sets.map((s) => sequence.filter((p) => p.set === s).at(-1)?.seq));
+  for (const { seq, step, set } of sequence) {
     const name = label(step.name, set);
     if (lockSignal.aborted) return fail(ctx, run, null, name, lockSignal.reason, outcome);
     if (req.stop?.aborted) {
@@ -262,7 +268,10 @@ async function executeLocked(ctx: RunnerContext, req: RunRequest, l: Locked): Pr
     if (set && upToDate.has(set)) {
       await finishStep(db, stepId, {
         status: 'skipped',
-        details: { reason: 'up to date on the same inputs' },
+        details: {
+          reason: 'up to date on the same inputs',
+          ...(lastOfSet.has(seq) ? { setComplete: true } : {}),
+        },
       });
       reporter.info(`${name}: up to date, skipped`, { runId: run.runId, step: step.name, set });
       continue;
@@ -284,12 +293,18 @@ async function executeLocked(ctx: RunnerContext, req: RunRequest, l: Locked): Pr
     reporter.info(`${name} ...`, { runId: run.runId, step: step.name, set });
     try {
       const result = await step.run(env);
-      if (lockSignal.aborted) return fail(ctx, run, stepId, name, lockSignal.reason, outcome);
+      // Nothing is recorded as done by a process that may no longer own the run.
+      await held.verify();
+      const complete = lastOfSet.has(seq) && result.status !== 'blocked';
       await record(() =>
         finishStep(db, stepId, {
           status: result.status,
           rows: result.rows,
-          details: { ...(result.details ?? {}), ...(result.message ? { message: result.message } : {}) },
+          details: {
+            ...(result.details ?? {}),
+            ...(result.message ? { message: result.message } : {}),
+            ...(complete ? { setComplete: true } : {}),
+          },
         }),
       );
       const secs = ((performance.now() - t0) / 1000).toFixed(2);
@@ -312,6 +327,11 @@ async function executeLocked(ctx: RunnerContext, req: RunRequest, l: Locked): Pr
     }
   }
   const message = `run ${run.runId} succeeded for ${cutoff}: ${sets.join(', ')}`;
+  try {
+    await held.verify();
+  } catch (err) {
+    return fail(ctx, run, null, 'finishing the run', err, outcome);
+  }
   await record(() => finishRun(db, run, { status: 'succeeded', message }));
   reporter.info(message, { runId: run.runId });
   return outcome('succeeded', message);

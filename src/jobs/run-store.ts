@@ -228,19 +228,15 @@ export async function latestRunFor(db: DbSession, cutoff: string, sets: readonly
 }
 
 /**
- * The newest run that finished a set for a cutoff with every one of its steps done, and the
- * inputs it saw: a rerun on equal inputs has nothing to do.
+ * The newest run that took a set through its last step for a cutoff (the step row marked
+ * `setComplete`), with the inputs it saw: a rerun on equal inputs has nothing to do.
  */
 export async function lastCompletedFor(db: DbSession, set: string, cutoff: string) {
   const res = await db.query<RunRecord>(
     `SELECT ${RUN_COLUMNS} FROM runs r
-     WHERE r.cutoff = $2 AND $1 = ANY (r.sets) AND r.status IN ('succeeded', 'failed', 'blocked', 'interrupted')
-       AND r.inputs ? $1
-       AND EXISTS (SELECT 1 FROM run_steps s WHERE s.run_id = r.run_id AND s.set_name = $1)
-       AND NOT EXISTS (
-         SELECT 1 FROM (SELECT DISTINCT ON (seq) status FROM run_steps s
-                        WHERE s.run_id = r.run_id AND s.set_name = $1 ORDER BY seq, attempt DESC) last
-         WHERE last.status NOT IN ('succeeded', 'skipped'))
+     WHERE r.cutoff = $2 AND $1 = ANY (r.sets) AND r.inputs ? $1
+       AND EXISTS (SELECT 1 FROM run_steps s WHERE s.run_id = r.run_id AND s.set_name = $1
+                   AND s.status IN ('succeeded', 'skipped') AND s.details @> '{"setComplete": true}')
      ORDER BY r.run_id DESC LIMIT 1`,
     [set, cutoff],
   );

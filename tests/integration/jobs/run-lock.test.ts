@@ -68,7 +68,7 @@ test('terminating the lock backend aborts the holder with LockLostError', async 
   const a = await lockDb('larder run 555@host-a');
   const key = runLockKey(t().schema, 'lost', '2024-05-01');
   try {
-    const reason = await withRunLocks(a, [key], { wait: false, probeMs: 50 }, async (signal) => {
+    const reason = await withRunLocks(a, [key], { wait: false, probeMs: 50 }, async ({ signal }) => {
       await t().db.query(
         `SELECT pg_terminate_backend(pid) FROM pg_stat_activity WHERE application_name = $1`,
         ['larder run 555@host-a'],
