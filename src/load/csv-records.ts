@@ -18,6 +18,8 @@ export type RecordHandler = (fields: string[], line: number, start: number, end:
 /** Raw lines kept in rejected_rows are cut at 1 KB. */
 export const RAW_LIMIT = 1024;
 const SNIFF_LIMIT = 1 << 16;
+/** The longest record accepted (a wide sales line of 20 years is about 60,000 characters). */
+export const MAX_RECORD_CHARS = 1_000_000;
 
 export interface CsvReadOptions {
   /** Read chunk size (tests use tiny chunks to exercise records split across chunks). */
@@ -220,6 +222,8 @@ export class CsvRecords {
         relax_quotes: true,
         skip_empty_lines: true,
         record_delimiter: ['\r\n', '\n'],
+        // Bounds memory when a stray quote swallows the rest of a file (csv-parse's default is no limit).
+        max_record_size: MAX_RECORD_CHARS,
       });
       p.handler = handler;
       this.parser = p;
@@ -273,9 +277,10 @@ export class CsvRecords {
       });
     }
     if (code === 'CSV_MAX_RECORD_SIZE') {
-      return new InputError(`${where}: a record is longer than 128,000 characters (unbalanced quotes?)`, {
-        cause: err,
-      });
+      return new InputError(
+        `${where}: a record is longer than ${MAX_RECORD_CHARS.toLocaleString('en')} characters (an unbalanced quote?)`,
+        { cause: err },
+      );
     }
     return new InputError(`${where}: malformed CSV (${(err as Error).message})`, { cause: err });
   }

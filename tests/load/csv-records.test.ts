@@ -97,6 +97,13 @@ test('invalid UTF-8 names its line; UTF-16 gets a hint; a truncated gzip is name
   expect(await error(Buffer.from([0x1f, 0x8b, 0x08, 0x00]))).toContain('truncated or corrupt gzip data');
 });
 
+test('a stray quote cannot swallow the rest of a big file: the record length is bounded', async () => {
+  const rows = 'I1,S1,2024-01-01,1\n'.repeat(70_000); // 1.3 MB after the stray quote
+  expect(await error(`a,b,c,d\nI1,"S1,2024-01-01,1\n${rows}`)).toContain(
+    'line 2: a record is longer than 1,000,000 characters (an unbalanced quote?)',
+  );
+});
+
 test('a missing file is an InputError naming it', async () => {
   const r = new CsvRecords(join(dir, 'absent.csv'));
   await expect(r.read(() => {})).rejects.toThrow(/absent\.csv: cannot read the file/);
