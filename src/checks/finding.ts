@@ -28,7 +28,17 @@ export interface FindingDetails {
   'calendar-missing-days': { days: number };
   'event-outside-calendar': { names: string[] };
   'benefit-day-outside-calendar': { regions: string[] };
-  'series-gaps': { missing_days: number; gaps: number; longest: number; span_days: number };
+  'series-gaps': {
+    missing_days: number;
+    gaps: number;
+    longest: number;
+    span_days: number;
+    /** The first missing days (up to 10). */
+    days: string[];
+    /** Missing days left out because most series lack them too (see chain-missing-days). */
+    chain_days_excluded: number;
+  };
+  'chain-missing-days': { series_missing: number; active_series: number };
   stockout: StockoutDetails;
   'open-zero-run': StockoutDetails;
   'pre-launch': { zero_days: number; first_sale: string };

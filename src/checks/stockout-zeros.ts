@@ -77,7 +77,7 @@ export const stockoutZeros = defineCheck({
               lastDay: s.firstDay + firstSale - 1,
               observed: zeros,
               details: { zero_days: zeros, first_sale: formatDay(s.firstDay + firstSale) },
-              message: `${zeros} zero days before the first sale on ${formatDay(s.firstDay + firstSale)}`,
+              message: `${zeros} zero day${zeros === 1 ? '' : 's'} before the first sale on ${formatDay(s.firstDay + firstSale)}`,
             });
           }
         }

@@ -2,6 +2,7 @@ import { resolve } from 'node:path';
 import type { Config } from '../config/config.js';
 import type { Db } from '../db/database.js';
 import { buildStep } from './steps/build-step.js';
+import { checkStep } from './steps/check-step.js';
 import { generateStep } from './steps/generate-step.js';
 import { loadStep } from './steps/load-step.js';
 import { publishStep } from './steps/publish-step.js';
@@ -25,7 +26,7 @@ export interface DemoStep {
 }
 
 /** The demo's steps in order; each pipeline stage adds its own step here. */
-export const DEMO_STEPS: DemoStep[] = [generateStep, resetStep, loadStep, summaryStep, buildStep, publishStep];
+export const DEMO_STEPS: DemoStep[] = [generateStep, resetStep, loadStep, summaryStep, checkStep, buildStep, publishStep];
 
 export interface DemoOptions {
   readonly dataDir?: string;

@@ -1,7 +1,7 @@
 import { describe, expect, test } from 'vitest';
 import { judgePrice } from '../../src/checks/price-spikes.js';
 
-const P = { threshold: 3.5, minHistoryWeeks: 4, ratio: 3 };
+const P = { threshold: 3.5, minHistoryWeeks: 4, ratio: 3, minRelativeMad: 0.05 };
 const judge = (price: number, base: number[]) =>
   judgePrice(price, base, base.length, P, new Float64Array(base.length));
 
@@ -33,6 +33,17 @@ describe('judgePrice', () => {
     // MAD is 0.05 and z = 12.1.
     expect(judge(3.0, [2, 2.1, 2.2])).toBeNull();
     expect(judge(3.0, [2, 2.1, 2.2, 2.1])).toMatchObject({ rule: 'modified-z' });
+  });
+
+  test('a MAD below 5% of the median is floored there', () => {
+    // Six weeks at 5.0, six at 5.2, one at 5.1: median 5.1, MAD 0.1 (2% of the median).
+    // Unfloored, 6.2 (+22%) would score 0.6745 x 1.1 / 0.1 = 7.4; floored at 0.05 x 5.1 = 0.255 it
+    // scores 0.6745 x 1.1 / 0.255 = 2.91 (no flag); 8.0 scores 0.6745 x 2.9 / 0.255 = 7.67.
+    const base = [5, 5, 5, 5, 5, 5, 5.2, 5.2, 5.2, 5.2, 5.2, 5.2, 5.1];
+    expect(judge(6.2, base)).toBeNull();
+    expect(judge(8.0, base)!.observed).toBeCloseTo((0.6745 * 2.9) / 0.255, 9);
+    const unfloored = judgePrice(6.2, base, 13, { ...P, minRelativeMad: 0 }, new Float64Array(13));
+    expect(unfloored!.observed).toBeCloseTo((0.6745 * 1.1) / 0.1, 6);
   });
 
   test('no baseline: not judged', () => {

@@ -140,7 +140,7 @@ function chainChart(d: ReportData, data: Record<string, unknown>): string {
   const legend = `<div class="legend">
     <span><i class="sw sw-units"></i>daily units</span><span><i class="sw sw-mean"></i>7-day mean</span>
     <span><i class="dot m-block"></i>volume drop (blocks)</span><span><i class="dot m-waived"></i>waived</span>
-    <span><i class="sw-band b-calendar"></i>calendar or chain finding</span></div>`;
+    <span><i class="sw-band b-calendar"></i>calendar gap or day most series lack</span></div>`;
   return `${legend}<div class="chart-wrap">${chart}</div>`;
 }
 
@@ -184,12 +184,14 @@ function seriesCard(s: ReportSeries, idx: number, data: Record<string, unknown>)
   const unitsChart = lineChart({
     id: idU,
     width: 540,
-    height: 170,
+    height: 150,
     firstDay: s.firstDay,
     days: n,
     lines: [{ values: s.units, className: 'l-units' }],
     bands: bands.filter((b) => b.className !== 'b-price'),
     yLabel: 'units',
+    // The price panel right beneath carries the day labels of the shared axis.
+    xLabels: false,
     ariaLabel: `daily units of item ${s.itemId} in store ${s.storeId}`,
   });
   const priceChart = lineChart({
@@ -240,8 +242,8 @@ function findingsTable(d: ReportData): string {
       <label>search <input id="f-text" type="search" placeholder="item, store, day, text"></label>
       <span id="f-count" class="muted"></span></div>
     ${more}
-    <table class="findings" id="findings"><thead><tr><th>severity</th><th>check</th><th>keys</th><th>days</th><th>finding</th></tr></thead>
-    <tbody>${rows.join('')}</tbody></table>`;
+    <div class="table-scroll"><table class="findings" id="findings"><thead><tr><th>severity</th><th>check</th><th>keys</th><th>days</th><th>finding</th></tr></thead>
+    <tbody>${rows.join('')}</tbody></table></div>`;
 }
 
 /** The whole report as one self-contained HTML document (inline CSS, JS and SVG). */

@@ -77,6 +77,9 @@ circle.marker { stroke:#fff; stroke-width:1.5; }
 .filters { display:flex; gap:16px; align-items:center; flex-wrap:wrap; margin:6px 0 10px; font-size:13.5px; }
 .filters select, .filters input { font:inherit; padding:4px 8px; border:1px solid var(--line); border-radius:6px; background:#fff; }
 .findings td { font-size:13.5px; }
+.findings td code { white-space:nowrap; }
+.table-scroll { max-height:640px; overflow:auto; border:1px solid var(--line); border-radius:8px; }
+.table-scroll thead th { position:sticky; top:0; background:var(--card); z-index:1; }
 footer { color:var(--muted); font-size:12.5px; padding:0 40px 30px; }
 .tooltip { position:fixed; pointer-events:none; background:#1d2430; color:#fff; font-size:12px; padding:6px 9px;
   border-radius:6px; box-shadow:0 4px 14px rgba(0,0,0,.18); white-space:nowrap; z-index:10; }

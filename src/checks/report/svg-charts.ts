@@ -119,10 +119,13 @@ export function lineChart(c: ChartSpec): string {
     `<svg class="chart" ${c.id ? `id="${esc(c.id)}" ` : ''}viewBox="0 0 ${c.width} ${c.height}" width="${c.width}" height="${c.height}" role="img" aria-label="${esc(c.ariaLabel)}" data-first-day="${formatDay(c.firstDay)}" data-days="${c.days}">`,
   );
   for (const b of c.bands ?? []) {
-    const x0 = x(b.from) - (0.5 / c.days) * w;
-    const x1 = x(b.to) + (0.5 / c.days) * w;
+    const a = x(b.from) - (0.5 / c.days) * w;
+    const z = x(b.to) + (0.5 / c.days) * w;
+    // A band is at least 3 px wide, centred on its days, so a single flagged week stays visible.
+    const bw = Math.max(3, z - a);
+    const bx = (a + z) / 2 - bw / 2;
     parts.push(
-      `<rect class="band ${esc(b.className)}" x="${x0.toFixed(1)}" y="${m.top}" width="${Math.max(1.5, x1 - x0).toFixed(1)}" height="${h}"><title>${esc(b.title)}</title></rect>`,
+      `<rect class="band ${esc(b.className)}" x="${bx.toFixed(1)}" y="${m.top}" width="${bw.toFixed(1)}" height="${h}"><title>${esc(b.title)}</title></rect>`,
     );
   }
   for (const t of yt) {

@@ -45,6 +45,23 @@ describe('volume-drop', () => {
   });
 });
 
+describe('series-gaps', () => {
+  test('a day most series lack is reported once, not held against each series', async () => {
+    const { db } = t();
+    // On 2024-02-06 one of three active series has no row: 33% absent.
+    const lax = await runChecks(db, withChecks({}), { only: ['series-gaps'] });
+    expect(lax.findings.map((f) => [f.code, f.itemId, f.firstDay, f.observed])).toEqual([
+      ['series-gaps', 'A', '2024-02-06', 1],
+    ]);
+    const strict = await runChecks(db, withChecks({ 'series-gaps': { chainShare: 0.3 } }), {
+      only: ['series-gaps'],
+    });
+    expect(strict.findings.map((f) => [f.code, f.itemId, f.firstDay, f.observed, f.details])).toEqual([
+      ['chain-missing-days', null, '2024-02-06', 1 / 3, { series_missing: 1, active_series: 3 }],
+    ]);
+  });
+});
+
 describe('freshness', () => {
   test('within the lag: nothing; beyond it: a warning, or a block in scheduled runs', async () => {
     const { db, config } = t();

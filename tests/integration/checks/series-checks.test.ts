@@ -89,6 +89,8 @@ describe('series-gaps', () => {
       gaps: 2,
       longest: 3,
       span_days: 8,
+      days: ['2024-01-03', '2024-01-04', '2024-01-05', '2024-01-07'],
+      chain_days_excluded: 0,
     });
   });
 });
