@@ -1,4 +1,5 @@
 import type { Command } from 'commander';
+import { ConfigError } from '../../db/errors.js';
 import { buildServer } from '../../serve/http-server.js';
 import { createMetrics } from '../../serve/metrics.js';
 import { createReader } from '../../serve/reader.js';
@@ -15,6 +16,9 @@ export function register(program: Command, ctx: CliContext): void {
     .option('--log-level <level>', 'server log level (fatal, error, warn, info, debug)', 'warn')
     .action(async (o: { port?: number; host?: string; redis?: string; logLevel: string }) => {
       const config = await ctx.config();
+      if (config.serve.tokens.length === 0) {
+        throw new ConfigError('serve: no tokens configured: set serve.tokens in the config or LARDER_TOKENS');
+      }
       const db = await ctx.db();
       const metrics = createMetrics();
       const reader = await createReader({
@@ -23,7 +27,9 @@ export function register(program: Command, ctx: CliContext): void {
         ...(o.redis ? { redisUrl: o.redis } : {}),
         events: metrics.readerEvents,
       });
+      ctx.onClose(() => reader.close());
       const app = buildServer({ reader, config, metrics, logLevel: o.logLevel });
+      ctx.onClose(() => app.close());
       const port = o.port ?? config.serve.port;
       const host = o.host ?? config.serve.host;
       await app.listen({ port, host });
@@ -35,12 +41,10 @@ export function register(program: Command, ctx: CliContext): void {
       ctx.out(
         `serving on http://${host}:${port} (cache: ${reader.cache.kind}, ${reader.cacheReady() ? 'ready' : 'not reachable'})`,
       );
-      // Runs until SIGINT or SIGTERM, then drains in-flight requests before closing.
+      // Runs until SIGINT or SIGTERM; closing (on the way out) drains requests in flight.
       await new Promise<void>((resolve) => {
         process.once('SIGINT', resolve);
         process.once('SIGTERM', resolve);
       });
-      await app.close();
-      await reader.close();
     });
 }
