@@ -5,6 +5,7 @@ import * as audit from './commands/audit.js';
 import * as build from './commands/build.js';
 import * as check from './commands/check.js';
 import * as exportCommand from './commands/export.js';
+import * as demo from './commands/demo.js';
 import * as init from './commands/init.js';
 import * as load from './commands/load.js';
 import * as publish from './commands/publish.js';
@@ -38,6 +39,7 @@ const COMMANDS: CommandModule[] = [
   worker,
   schedule,
   runs,
+  demo,
 ];
 
 export async function main(argv: readonly string[]): Promise<number> {
