@@ -6,6 +6,9 @@ import type { ExportLayout } from './export-layout.js';
 /** Rows per batch: fixed, so the same snapshot always splits into the same batches (and bytes). */
 export const EXPORT_BATCH_ROWS = 65_536;
 
+/** PostgreSQL sort memory for a sorted read of a snapshot table. */
+export const SORT_WORK_MEM = '256MB';
+
 /** Decoded snapshot rows: `columns[0]` is series_id, then the layout's table columns. */
 export interface ExportBatch {
   readonly length: number;
@@ -46,6 +49,9 @@ export async function* readSnapshot(
     await tx.exec(
       'RESET synchronize_seqscans; RESET max_parallel_workers_per_gather; RESET enable_indexscan; RESET enable_indexonlyscan',
     );
+    // A larger sort budget means fewer merge passes (none at demo size); server only, as the
+    // embedded database lives in this process's WebAssembly memory.
+    if (db.kind === 'server') await tx.exec(`SET LOCAL work_mem = '${SORT_WORK_MEM}'`);
   }
   const pid =
     db.kind === 'server'
