@@ -116,7 +116,7 @@ export async function main(argv: string[]): Promise<void> {
     const usedAfter = Number(/used_memory:(\d+)/.exec(await raw.info('memory'))![1]);
     out(
       `(d) publish: ${pub.keys} series in ${pub.seconds.toFixed(2)} s (${Math.round(pub.keys / pub.seconds)} series/s, ` +
-        `${(pub.bytes / 1e6).toFixed(1)} MB)`,
+        `${(pub.bytes / 1e6).toFixed(1)} MB; ms ${JSON.stringify(pub.timings)})`,
     );
 
     // (c) memory per series

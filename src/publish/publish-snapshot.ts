@@ -37,6 +37,15 @@ export interface PublishResult {
   readonly seconds: number;
   /** The version the pointer named before, now expiring; null on the first publish. */
   readonly previous: number | null;
+  /** Milliseconds: COPY and packing net of writes, writing, counting back, switching and expiring. */
+  readonly timings: PublishTimings;
+}
+
+export interface PublishTimings {
+  readonly readMs: number;
+  readonly writeMs: number;
+  readonly verifyMs: number;
+  readonly switchMs: number;
 }
 
 /** Series written per cache round. */
@@ -126,6 +135,7 @@ interface Written {
   readonly keys: number;
   readonly bytes: number;
   readonly previous: number | null;
+  readonly timings: PublishTimings;
 }
 
 async function writeVersion(
@@ -142,6 +152,8 @@ async function writeVersion(
   const F = snap.columns.length;
   const firstDay = parseDay(snap.cutoff)! + 1;
   const pendingMs = config.serve.pendingSeconds * 1000;
+  const t0 = performance.now();
+  let writeMs = 0;
   const version = await cache.incr(layout.sequence(set));
 
   const names = new Map<number, { item: string; store: string }>();
@@ -162,7 +174,9 @@ async function writeVersion(
   let bytes = 0;
   const flush = async () => {
     if (batch.length === 0) return;
+    const tw = performance.now();
     await cache.setMany(batch, pendingMs);
+    writeMs += performance.now() - tw;
     batch = [];
     onProgress?.(seriesKeys.length);
   };
@@ -247,6 +261,7 @@ async function writeVersion(
   meta.push([layout.manifest(set, version), JSON.stringify(manifest)]);
   await cache.setMany(meta, pendingMs);
   for (const [, v] of meta) bytes += Buffer.byteLength(v);
+  const t1 = performance.now();
 
   // Count back what landed before anything points at it.
   const metaKeys = meta.map(([k]) => k);
@@ -265,11 +280,19 @@ async function writeVersion(
       `version ${version} of set '${set}': ${expected - persisted} keys expired before the switch`,
     );
   }
+  const t2 = performance.now();
   const prev = await cache.swap(layout.pointer(set), String(version));
   const previous = prev === null ? null : Number(prev);
   if (previous !== null && previous !== version)
     await expireVersion(cache, layout, set, previous, graceSeconds);
-  return { version, keys: seriesKeys.length, bytes, previous };
+  const t3 = performance.now();
+  const timings = {
+    readMs: Math.round(t1 - t0 - writeMs),
+    writeMs: Math.round(writeMs),
+    verifyMs: Math.round(t2 - t1),
+    switchMs: Math.round(t3 - t2),
+  };
+  return { version, keys: seriesKeys.length, bytes, previous, timings };
 }
 
 /** Gives every key of an old version the grace expiry (found through its manifest and store indexes). */
