@@ -89,24 +89,24 @@ export async function publishSnapshot(
            message = 'the publisher stopped before finishing' WHERE set_name = $1 AND status = 'running'`,
         [set],
       );
-      const snap = await findSnapshot(s, set, opts.cutoff);
+      const entry = await findSnapshot(s, set, opts.cutoff);
       const publishId = Number(
         (
           await s.query<{ id: number }>(
             `INSERT INTO publishes (set_name, cutoff, snapshot_id, status) VALUES ($1, $2::date, $3, 'running')
              RETURNING publish_id AS id`,
-            [set, snap.cutoff, snap.snapshotId],
+            [set, entry.cutoff, entry.snapshotId],
           )
         ).rows[0]!.id,
       );
       try {
-        const out = await writeVersion(s, cache, config, snap, graceSeconds, opts.onProgress);
+        const out = await writeVersion(s, cache, config, entry, graceSeconds, opts.onProgress);
         await s.query(
           `UPDATE publishes SET status = 'done', version = $2, keys = $3, bytes = $4, finished_at = now()
            WHERE publish_id = $1`,
           [publishId, out.version, out.keys, out.bytes],
         );
-        return { publishId, set, cutoff: snap.cutoff, ...out, seconds: (performance.now() - t0) / 1000 };
+        return { publishId, set, cutoff: entry.cutoff, ...out, seconds: (performance.now() - t0) / 1000 };
       } catch (err) {
         await s
           .query(
@@ -142,15 +142,15 @@ async function writeVersion(
   s: DbSession,
   cache: FeatureCache,
   config: Config,
-  snap: SnapshotEntry,
+  entry: SnapshotEntry,
   graceSeconds: number,
   onProgress?: (written: number) => void,
 ): Promise<Written> {
   const layout = new KeyLayout(config.redis.prefix);
-  const set = snap.set;
-  const H = snap.horizon;
-  const F = snap.columns.length;
-  const firstDay = parseDay(snap.cutoff)! + 1;
+  const set = entry.set;
+  const H = entry.horizon;
+  const F = entry.columns.length;
+  const firstDay = parseDay(entry.cutoff)! + 1;
   const pendingMs = config.serve.pendingSeconds * 1000;
   const t0 = performance.now();
   let writeMs = 0;
@@ -180,11 +180,11 @@ async function writeVersion(
     batch = [];
     onProgress?.(seriesKeys.length);
   };
-  const cols = snap.columns.map((c) => quoteIdent(c.name)).join(', ');
-  const copy = `COPY (SELECT series_id, day${F ? `, ${cols}` : ''} FROM ${quoteIdent(snap.tableName)}
+  const cols = entry.columns.map((c) => quoteIdent(c.name)).join(', ');
+  const copy = `COPY (SELECT series_id, day${F ? `, ${cols}` : ''} FROM ${quoteIdent(entry.tableName)}
     WHERE is_predict) TO STDOUT (FORMAT binary)`;
-  const types = ['int4', 'date', ...snap.columns.map(() => 'float8' as const)] as const;
-  const where = `snapshot ${set} ${snap.cutoff} (table ${snap.tableName})`;
+  const types = ['int4', 'date', ...entry.columns.map(() => 'float8' as const)] as const;
+  const where = `snapshot ${set} ${entry.cutoff} (table ${entry.tableName})`;
   for await (const b of readCopyBinary(s.copyTo(copy), types, 16384)) {
     const ids = b.columns[0] as Int32Array;
     const days = b.columns[1] as Int32Array;
@@ -243,12 +243,12 @@ async function writeVersion(
     format: 1,
     set,
     version,
-    cutoff: snap.cutoff,
+    cutoff: entry.cutoff,
     horizon: H,
-    mode: snap.mode,
-    definitionHash: snap.definitionHash,
-    snapshotId: snap.snapshotId,
-    columns: snap.columns.map((c) => ({
+    mode: entry.mode,
+    definitionHash: entry.definitionHash,
+    snapshotId: entry.snapshotId,
+    columns: entry.columns.map((c) => ({
       name: c.name,
       type: c.type,
       ...(c.family ? { family: c.family } : {}),

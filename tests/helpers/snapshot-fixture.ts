@@ -78,7 +78,7 @@ export async function createSnapshotFixture(db: Db, o: FixtureOptions = {}): Pro
   const rand = rng(o.seed ?? 7);
   const c = parseDay(cutoff)!;
   const columns = Array.from({ length: F }, (_, f) => `f${String(f).padStart(2, '0')}_units`);
-  const tableName = `snap_${set}_${cutoff.replaceAll('-', '')}`;
+  const tableName = `features_${set}_${cutoff.replaceAll('-', '')}`;
 
   await db.exec(SNAPSHOTS_DDL);
   const storeIds = Array.from({ length: stores }, (_, s) => `ST-${String(s + 1).padStart(3, '0')}`);

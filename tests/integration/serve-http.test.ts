@@ -72,7 +72,7 @@ async function call(path: string, init: RequestInit & { token?: string | null } 
 
 /** No response may leak internals: stack frames, source paths or SQL. */
 function expectClean(r: Res): void {
-  expect(r.text).not.toMatch(/\n\s+at |\.ts:\d+|node_modules|SELECT |FROM |JOIN |unnest|snap_daily/i);
+  expect(r.text).not.toMatch(/\n\s+at |\.ts:\d+|node_modules|SELECT |FROM |JOIN |unnest|features_daily/i);
 }
 
 const s0 = () => fx.series[0]!;
