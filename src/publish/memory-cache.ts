@@ -72,8 +72,9 @@ export function createMemoryCache(name = 'default'): FeatureCache {
         const slot = live(k);
         if (slot) slot.expiresAt = at;
       }
-      // Sweep expired keys now and then so a long demo session does not keep old versions.
-      if (map.size > 0 && Math.random() < 0.1) for (const k of [...map.keys()]) live(k);
+      // An old version is expired once per publish: sweep what has lapsed so far, so a long
+      // session does not keep every version it ever published.
+      for (const k of [...map.keys()]) live(k);
     },
     async incr(key) {
       const cur = live(key);
