@@ -49,6 +49,8 @@ interface PartitionData {
   readonly base: number;
   readonly env: PartitionEnv;
   readonly inputRows: number;
+  /** Milliseconds per input read. */
+  readonly reads: Record<string, number>;
 }
 
 async function readPartition(
@@ -58,10 +60,19 @@ async function readPartition(
   store: string,
 ): Promise<PartitionData> {
   const C = day(plan.cutoff);
+  const reads: Record<string, number> = {};
+  let tr = performance.now();
+  const lap = (name: string) => {
+    const now = performance.now();
+    reads[name] = Math.round(now - tr);
+    tr = now;
+  };
   const series = await readPartitionSeries(s, store, C);
+  lap('seriesMs');
   const base =
     plan.salesFrom !== null ? day(plan.salesFrom) : series.reduce((m, x) => Math.min(m, x.firstDay), C);
   const inputRows = await readPartitionSales(s, store, series, base, C);
+  lap('salesMs');
   const groupFrom = day(plan.groupFrom);
   const groups = storeGroups(series, plan.storeLevels, base, groupFrom, C) as Map<
     GroupLevel,
@@ -76,6 +87,7 @@ async function readPartition(
     }
     await readStagedGroups(s, plan.groupTable, wanted, groupFrom, C, groups);
   }
+  lap('groupsMs');
   const needs = set.families.map((f) => f.family.needs(f.params, set.shape));
   let prices: PartitionEnv['prices'] = null;
   let deptPrices: PartitionEnv['deptPrices'] = null;
@@ -85,6 +97,7 @@ async function readPartition(
     const p = await readPartitionPrices(s, store, day(plan.priceBoundary), departmentOf);
     prices = p.prices;
     deptPrices = p.deptPrices;
+    lap('pricesMs');
   }
   const anchorLo = day(plan.anchorLo);
   const anchorHi = day(plan.anchorHi);
@@ -94,6 +107,7 @@ async function readPartition(
     const { events, benefit } = await readCalendarInputs(s, regionId);
     const kinds = set.definition.families.calendar?.eventKinds ?? [];
     calendar = calendarTable(anchorLo - 1, C + set.shape.horizon, events, benefit, plan.codes, kinds);
+    lap('calendarMs');
   }
   const env: PartitionEnv = {
     cutoff: C,
@@ -108,7 +122,7 @@ async function readPartition(
     group: (level, key) => (key === null ? null : (groups.get(level)?.get(key) ?? null)),
     cache: new Map(),
   };
-  return { series, base, env, inputRows };
+  return { series, base, env, inputRows, reads };
 }
 
 /** Streams the partition's snapshot rows as binary COPY chunks, series by series. */
@@ -236,6 +250,7 @@ export async function buildPartition(
       );
     }
     const timings = {
+      ...data.reads,
       readMs: Math.round(readMs),
       computeMs: Math.round(counts.computeMs),
       writeMs: Math.round(copyMs - counts.computeMs),

@@ -61,6 +61,8 @@ export interface BuildPlan {
   /** Load batches seen when planning; a load before the finish makes the build fail. */
   readonly loadMark: { readonly batches: number; readonly lastBatch: number };
   readonly plannedAt: string;
+  /** Milliseconds of the plan's scans (fingerprint, group totals). */
+  readonly timings: Readonly<Record<string, number>>;
 }
 
 /** The compiled set of a plan (partitions and finish run from the plan, not from the config). */
@@ -114,7 +116,7 @@ export function buildWindow(set: ResolvedFeatureSet, cutoff: number, from: numbe
   };
 }
 
-/** A staging table name: snap_<set>_<yyyymmdd>_<random>, at most 61 characters. */
+/** A staging table name: snap_<set>_<yyyymmdd>_<random>, at most 59 characters (suffixes fit in 63). */
 function stagingName(set: string, cutoff: number): string {
   const ymd = formatDay(cutoff).replaceAll('-', '');
   const rnd = randomBytes(6)
@@ -122,7 +124,7 @@ function stagingName(set: string, cutoff: number): string {
     .toLowerCase()
     .replace(/[^a-z0-9]/g, '0')
     .slice(0, 6);
-  return safeIdent(`snap_${set.slice(0, 40)}_${ymd}_${rnd}`, 'snapshot table');
+  return safeIdent(`snap_${set.slice(0, 38)}_${ymd}_${rnd}`, 'snapshot table');
 }
 
 /** DDL of a snapshot table for a set's columns (DESIGN.md / docs/contracts.md layout). */
@@ -171,14 +173,27 @@ export async function planBuild(
 
   try {
     // The fingerprint and the group totals are independent scans: run them side by side.
+    const tp = performance.now();
+    const timed = async <T>(name: string, p: Promise<T>) => {
+      const v = await p;
+      planTimings[name] = Math.round(performance.now() - tp);
+      return v;
+    };
+    const planTimings: Record<string, number> = {};
     const [fp] = await Promise.all([
-      dataFingerprint((fn) => db.session(fn), cutoff, w.priceBoundary),
+      timed(
+        'fingerprintMs',
+        dataFingerprint((fn) => db.session(fn), cutoff, w.priceBoundary),
+      ),
       groupTable
-        ? db.session(async (s) => {
-            for (const sql of stageGroupStatements(groupTable, w.chain, w.groupFrom, cutoff))
-              await s.exec(sql);
-            await s.exec(`ANALYZE ${quoteIdent(groupTable)}`);
-          })
+        ? timed(
+            'groupsMs',
+            db.session(async (s) => {
+              for (const sql of stageGroupStatements(groupTable, w.chain, w.groupFrom, cutoff))
+                await s.exec(sql);
+              await s.exec(`ANALYZE ${quoteIdent(groupTable)}`);
+            }),
+          )
         : Promise.resolve(),
     ]);
     const plan: BuildPlan = {
@@ -205,6 +220,7 @@ export async function planBuild(
       codes,
       loadMark: { batches: Number(mark.n), lastBatch: Number(mark.last) },
       plannedAt: new Date().toISOString(),
+      timings: planTimings,
     };
     await db.transaction(async (tx) => {
       await tx.exec(snapshotTableDdl(table, set));
@@ -215,7 +231,11 @@ export async function planBuild(
     });
     return plan;
   } catch (err) {
-    if (groupTable) await db.exec(`DROP TABLE IF EXISTS ${quoteIdent(groupTable)}`).catch(() => {});
+    if (groupTable) {
+      await db
+        .exec(`DROP TABLE IF EXISTS ${quoteIdent(groupTable)}, ${quoteIdent(`${groupTable}_r`)}`)
+        .catch(() => {});
+    }
     throw err;
   }
 }

@@ -46,6 +46,7 @@ export async function buildSnapshot(
     const t2 = performance.now();
     const info = await finishBuild(db, config, plan, {
       planMs: Math.round(planMs),
+      plan: plan.timings,
       partitionsMs: Math.round(partitionsMs),
       concurrency: limit,
     });

@@ -1,7 +1,7 @@
-import { readCopyBinary } from '../db/binary-copy.js';
 import { type DbSession, quoteIdent } from '../db/database.js';
 import type { GroupSeries } from '../features/family.js';
 import { type GroupLevel, KEY_SEP, LEVELS } from '../features/group-levels.js';
+import { readRawCopy } from './raw-copy.js';
 import { dayLiteral, quoteLiteral, textArrayLiteral } from './sql-text.js';
 
 /** Levels in the order they are staged: finer first, so coarser ones sum the finer totals. */
@@ -57,9 +57,11 @@ const DERIVE: Record<string, Record<string, { k1: string; join: string }>> = {
 };
 
 /**
- * Statements that stage the daily totals of each chain level over days from..cutoff into
- * `table` (level, k1, k2, day, total, n): one GROUP BY per level, over sales for the finest
- * level and over an already staged finer level for the others.
+ * Statements that stage the daily totals of each chain level over days from..cutoff: one GROUP
+ * BY per level into `rows` (level, k1, k2, day, total, n), over sales for the finest level and
+ * over an already staged finer level for the others; then one row per group in `table` with
+ * its days packed as bytes (int4 day offset, float8 total, int4 members; big-endian), so a
+ * partition reads a group's history as one value instead of one row per day.
  */
 export function stageGroupStatements(
   table: string,
@@ -67,7 +69,7 @@ export function stageGroupStatements(
   from: number,
   cutoff: number,
 ): string[] {
-  const t = quoteIdent(table);
+  const t = quoteIdent(`${table}_r`);
   const out = [
     `CREATE UNLOGGED TABLE ${t} (level text NOT NULL, k1 text, k2 text, day date NOT NULL, total float8 NOT NULL, n int4 NOT NULL)`,
   ];
@@ -90,7 +92,13 @@ export function stageGroupStatements(
     }
     staged.push(level);
   }
-  out.push(`CREATE INDEX ON ${t} (level, k1)`);
+  out.push(
+    `CREATE UNLOGGED TABLE ${quoteIdent(table)} AS SELECT level, k1, k2,
+       string_agg(int4send((day - ${dayLiteral(from)})::int4) || float8send(total) || int4send(n), ''::bytea ORDER BY day) AS days
+     FROM ${t} GROUP BY level, k1, k2`,
+    `CREATE INDEX ON ${quoteIdent(table)} (level, k1)`,
+    `DROP TABLE ${t}`,
+  );
   return out;
 }
 
@@ -99,7 +107,7 @@ export type GroupMap = Map<GroupLevel, Map<string, GroupSeries>>;
 
 /**
  * Reads the staged totals of the given groups (keys as in `groupKey`) into dense arrays over
- * days base..cutoff. One COPY per level, filtered to the keys the partition needs.
+ * days base..cutoff: one COPY per level, filtered to the keys the partition needs.
  */
 export async function readStagedGroups(
   s: DbSession,
@@ -113,33 +121,28 @@ export async function readStagedGroups(
   for (const [level, keys] of wanted) {
     if (keys.size === 0) continue;
     const k1s = new Set([...keys].map((k) => k.split(KEY_SEP)[0]!));
-    const sql = `COPY (SELECT k1, k2, day, total, n FROM ${quoteIdent(table)} WHERE level = ${quoteLiteral(level)}
-      AND k1 = ANY(${textArrayLiteral(k1s)}) AND day >= ${dayLiteral(base)} ORDER BY k1, k2, day) TO STDOUT (FORMAT binary)`;
+    const sql = `COPY (SELECT k1, k2, days FROM ${quoteIdent(table)} WHERE level = ${quoteLiteral(level)}
+      AND k1 = ANY(${textArrayLiteral(k1s)})) TO STDOUT (FORMAT binary)`;
     const byKey = into.get(level) ?? new Map<string, GroupSeries>();
     into.set(level, byKey);
-    let curKey: string | null = null;
-    let cur: GroupSeries | null = null;
-    for await (const b of readCopyBinary(s.copyTo(sql), ['text', 'text', 'date', 'float8', 'int4'])) {
-      const k1 = b.columns[0] as string[];
-      const k2 = b.columns[1] as string[];
-      const k2null = b.nulls[1]!;
-      const day = b.columns[2] as Int32Array;
-      const total = b.columns[3] as Float64Array;
-      const n = b.columns[4] as Int32Array;
-      for (let r = 0; r < b.length; r++) {
-        const key = k2null[r] ? k1[r]! : `${k1[r]}${KEY_SEP}${k2[r]}`;
-        if (key !== curKey) {
-          curKey = key;
-          cur = keys.has(key) ? { base, total: new Float64Array(len), n: new Float64Array(len) } : null;
-          if (cur) byKey.set(key, cur);
-        }
-        if (!cur) continue;
-        const i = day[r]! - base;
+    for await (const [k1, k2, days] of readRawCopy(s.copyTo(sql))) {
+      if (!k1 || !days) continue;
+      const key =
+        k2 === null || k2 === undefined
+          ? k1.toString('utf8')
+          : `${k1.toString('utf8')}${KEY_SEP}${k2.toString('utf8')}`;
+      if (!keys.has(key)) continue;
+      const total = new Float64Array(len);
+      const n = new Float64Array(len);
+      // Offsets count from the staging's first day, which is `base` (the plan's groupFrom).
+      for (let p = 0; p + 16 <= days.length; p += 16) {
+        const i = days.readInt32BE(p);
         if (i >= 0 && i < len) {
-          (cur.total as Float64Array)[i] = total[r]!;
-          (cur.n as Float64Array)[i] = n[r]!;
+          total[i] = days.readDoubleBE(p + 4);
+          n[i] = days.readInt32BE(p + 12);
         }
       }
+      byKey.set(key, { base, total, n });
     }
   }
 }
