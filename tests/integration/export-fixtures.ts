@@ -51,7 +51,8 @@ export async function makeSnapshot(db: Db, spec: SnapshotSpec): Promise<void> {
   await db.exec(`DROP TABLE IF EXISTS ${t}; CREATE TABLE ${t} (
     series_id int4 NOT NULL, day date NOT NULL, origin date, is_predict bool NOT NULL, label int4,
     lag_7 float8, mean_28 float8, price_ratio float8)`);
-  // Values: irrational doubles (full precision round trips), NULLs, a NaN and an infinity.
+  // Values: doubles needing all 17 digits (correctly rounded divisions, the same on every
+  // platform), NULLs, a NaN and an infinity.
   const origin = mode === 'origin' ? `$1::date - o` : 'NULL::date';
   const originRows = mode === 'origin' ? 'CROSS JOIN generate_series(0, 1) o' : '';
   await db.query(
@@ -59,9 +60,9 @@ export async function makeSnapshot(db: Db, spec: SnapshotSpec): Promise<void> {
      SELECT series_id, day, origin, is_predict, label, lag_7, mean_28, price_ratio FROM (
        SELECT s.series_id, $1::date + k AS day, ${origin} AS origin, k > 0 AS is_predict,
          CASE WHEN k > 0 THEN NULL ELSE (s.series_id * 7 + k + 1000) % 11 END AS label,
-         CASE WHEN (s.series_id + k) % 13 = 0 THEN NULL ELSE sin(s.series_id * 1000 + k) * 10 END AS lag_7,
+         CASE WHEN (s.series_id + k) % 13 = 0 THEN NULL ELSE ((s.series_id * 7919 + k * 104729) % 100003 - 50000)::float8 / 997 END AS lag_7,
          CASE WHEN s.series_id = 3 AND k = -1 THEN 'NaN'::float8 WHEN s.series_id = 3 AND k = -2 THEN '-Infinity'::float8
-              ELSE cos(k::float8) / (s.series_id + 0.5) END AS mean_28,
+              ELSE ((k * 31 + s.series_id) % 1009)::float8 / (s.series_id + 0.5) END AS mean_28,
          CASE WHEN k % 5 = 0 THEN NULL ELSE 1 + k / 1e6 END AS price_ratio
        FROM (SELECT series_id FROM series ORDER BY series_id LIMIT $4) s
        CROSS JOIN generate_series(1 - $2::int, $3::int) k ${originRows}
