@@ -1,3 +1,4 @@
+import { createHash } from 'node:crypto';
 import { endianness } from 'node:os';
 import type { Config } from '../config/config.js';
 import { formatDay, parseDay } from '../core/days.js';
@@ -180,6 +181,13 @@ async function writeVersion(
     batch = [];
     onProgress?.(seriesKeys.length);
   };
+  // A partial index on the prediction rows serves both this COPY and the reader's fallback
+  // (series and day lookups): without it every fallback batch would scan the whole snapshot,
+  // training rows included. Built once per snapshot table; a rebuilt table gets its own.
+  await s.exec(
+    `CREATE INDEX IF NOT EXISTS ${quoteIdent(predictIndexName(entry.tableName))}
+     ON ${quoteIdent(entry.tableName)} (series_id, day) WHERE is_predict`,
+  );
   const cols = entry.columns.map((c) => quoteIdent(c.name)).join(', ');
   const copy = `COPY (SELECT series_id, day${F ? `, ${cols}` : ''} FROM ${quoteIdent(entry.tableName)}
     WHERE is_predict) TO STDOUT (FORMAT binary)`;
@@ -293,6 +301,12 @@ async function writeVersion(
     switchMs: Math.round(t3 - t2),
   };
   return { version, keys: seriesKeys.length, bytes, previous, timings };
+}
+
+/** The name of the prediction-row index of a snapshot table (within the 63-byte limit). */
+export function predictIndexName(table: string): string {
+  const h = createHash('sha256').update(table).digest('hex').slice(0, 8);
+  return `${table.slice(0, 40)}_${h}_predict`;
 }
 
 /** Gives every key of an old version the grace expiry (found through its manifest and store indexes). */

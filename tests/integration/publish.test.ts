@@ -94,6 +94,12 @@ describe('publishSnapshot to Redis', () => {
     const manifest = JSON.parse((await raw.get(layout.manifest('daily', first.version)))!);
     expect(manifest).toMatchObject({ set: 'daily', cutoff: a.cutoff, horizon: 28, series: a.series.length });
     expect(manifest.columns.map((c: { name: string }) => c.name)).toEqual(a.columns);
+    // The prediction rows got their partial index (the fallback's lookups use it).
+    const idx = await env().db.query<{ indexdef: string }>(
+      'SELECT indexdef FROM pg_indexes WHERE schemaname = current_schema() AND tablename = $1',
+      [a.tableName],
+    );
+    expect(idx.rows.map((r) => r.indexdef).join('\n')).toMatch(/\(series_id, day\) WHERE is_predict/);
     const pub = await env().db.query<{ status: string; keys: number; version: number }>(
       'SELECT status, keys, version FROM publishes WHERE publish_id = $1',
       [first.publishId],
