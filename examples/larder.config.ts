@@ -85,4 +85,20 @@ export default defineConfig({
       },
     },
   ],
+
+  // What `larder run` and `larder schedule` do (docs/jobs.md). A run loads new files from the
+  // watched folder (when set), checks (a blocking finding stops it), builds every set, exports
+  // and publishes; each run and step is recorded (`larder runs`).
+  pipeline: {
+    // watch: { dir: 'incoming', mode: 'append' },  // e.g. sales_2024-06-02.csv.gz dropped nightly
+    steps: {
+      export: { dir: 'demo-output/exports', format: 'parquet' },
+      publish: true,
+    },
+    // Nightly at 02:00 (chain time) for yesterday's sales: `larder schedule`.
+    schedules: [{ name: 'nightly', cron: '0 2 * * *', timezone: 'Europe/Lisbon', cutoff: 'yesterday' }],
+    // Partitions (stores) built at once by each runner or `larder worker`; a worker silent for
+    // timeoutSeconds has its partition reclaimed by another.
+    workers: { concurrency: 2, heartbeatSeconds: 5, timeoutSeconds: 60 },
+  },
 });
