@@ -1,10 +1,10 @@
 /**
  * Scaled forecast-accuracy measures over plain arrays (no I/O).
  *
- * RMSSE and WRMSSE: Makridakis, Spiliotis & Assimakopoulos, "M5 accuracy competition: results,
- * findings, and conclusions", International Journal of Forecasting 38(4), 2022. The scale is the
- * in-sample mean squared one-step naive error, taken over the periods from the series' first
- * non-zero demand on (leading zeros dropped, later zeros kept).
+ * RMSSE and WRMSSE: Makridakis, Spiliotis & Assimakopoulos, International Journal of
+ * Forecasting 38(4), 2022. The scale is the in-sample mean squared one-step naive error, taken
+ * over the periods from the series' first non-zero demand on (leading zeros dropped, later zeros
+ * kept).
  *
  * MASE: Hyndman & Koehler, "Another look at measures of forecast accuracy", International Journal
  * of Forecasting 22, 2006: the in-sample mean absolute (seasonal) naive error as the scale.

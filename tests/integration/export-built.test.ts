@@ -68,10 +68,10 @@ test('a built snapshot round-trips through Parquet and DuckDB, cell for cell', a
 
 test('openSnapshot yields Arrow batches and plain rows with the manifest; stopping early is safe', async () => {
   const { db } = t();
-  const snap = await openSnapshot({ set: 'weekly', cutoff: CUTOFF, db, rows: 'predict' });
-  expect(snap.manifest).toMatchObject({ set: 'weekly', cutoff: CUTOFF, horizon: 7, rows: 'predict' });
+  const opened = await openSnapshot({ set: 'weekly', cutoff: CUTOFF, db, rows: 'predict' });
+  expect(opened.manifest).toMatchObject({ set: 'weekly', cutoff: CUTOFF, horizon: 7, rows: 'predict' });
   let n = 0;
-  for await (const batch of snap) {
+  for await (const batch of opened) {
     n += batch.numRows;
     expect(batch.schema.fields.map((f) => f.name).slice(0, 5)).toEqual([
       'item_id',

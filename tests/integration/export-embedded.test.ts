@@ -48,14 +48,14 @@ test('Parquet, CSV and Arrow exports are byte-identical from the embedded databa
 
 test('openSnapshot and scoring work on the embedded database', async () => {
   let n = 0;
-  const snap = await openSnapshot({
+  const opened = await openSnapshot({
     set: 'daily',
     cutoff: SPEC.cutoff,
     db: embedded,
     as: 'rows',
     rows: 'predict',
   });
-  for await (const row of snap) {
+  for await (const row of opened) {
     expect(row.is_predict).toBe(true);
     n++;
   }

@@ -16,34 +16,34 @@ export const exportStep: DemoStep = {
   name: 'export and score',
   async run(ctx) {
     const { db, config } = ctx;
-    const snap = (
+    const built = (
       await db.query<{ set_name: string; cutoff: string; horizon: number }>(
         'SELECT set_name, cutoff::text AS cutoff, horizon FROM snapshots ORDER BY built_at DESC, snapshot_id DESC LIMIT 1',
       )
     ).rows[0];
-    if (!snap) throw new LarderError('DEMO', 'no snapshot was built before this step: nothing to export');
+    if (!built) throw new LarderError('DEMO', 'no snapshot was built before this step: nothing to export');
     mkdirSync(ctx.outDir, { recursive: true });
-    const out = join(ctx.outDir, `${snap.set_name}-${snap.cutoff}-train.parquet`);
+    const out = join(ctx.outDir, `${built.set_name}-${built.cutoff}-train.parquet`);
     const t0 = performance.now();
     const r = await exportSnapshot(db, config, {
-      set: snap.set_name,
-      cutoff: snap.cutoff,
+      set: built.set_name,
+      cutoff: built.cutoff,
       out,
       rows: 'train',
     });
     const s = (performance.now() - t0) / 1000;
     ctx.out(
-      `  exported ${r.rowCount} training rows of ${snap.set_name} @ ${snap.cutoff} in ${s.toFixed(2)} s`,
+      `  exported ${r.rowCount} training rows of ${built.set_name} @ ${built.cutoff} in ${s.toFixed(2)} s`,
     );
     ctx.out(`    ${relative(process.cwd(), r.path)}  sha256 ${r.sha256.slice(0, 16)}...`);
     ctx.out(`    manifest ${relative(process.cwd(), r.manifestPath)}`);
 
     const last = (await db.query<{ d: string }>('SELECT max(day)::text AS d FROM sales')).rows[0]!.d;
-    const cutoff = formatDay(parseDay(last)! - snap.horizon);
+    const cutoff = formatDay(parseDay(last)! - built.horizon);
     ctx.out(
-      `\n  reference forecasts scored at cutoff ${cutoff} (the last with ${snap.horizon} days of actuals after it):`,
+      `\n  reference forecasts scored at cutoff ${cutoff} (the last with ${built.horizon} days of actuals after it):`,
     );
-    const score = await scoreForecasts(db, config, { cutoff, horizon: snap.horizon });
+    const score = await scoreForecasts(db, config, { cutoff, horizon: built.horizon });
     for (const line of formatScoreTable(score)) ctx.out(`  ${line}`);
   },
 };
