@@ -18,6 +18,11 @@ export type RecordHandler = (fields: string[], line: number, start: number, end:
 /** Raw lines kept in rejected_rows are cut at 1 KB. */
 export const RAW_LIMIT = 1024;
 const SNIFF_LIMIT = 1 << 16;
+/**
+ * Read (and COPY) chunks of 256 KB: with 1 MB chunks a 2M-row load peaked at 226 MB RSS against
+ * 176 MB, its external memory at 49 MB against 10 MB, for the same CPU time.
+ */
+export const READ_CHUNK = 256 << 10;
 /** The longest record accepted (a wide sales line of 20 years is about 60,000 characters). */
 export const MAX_RECORD_CHARS = 1_000_000;
 
@@ -111,7 +116,7 @@ const isGzip = async (file: string): Promise<boolean> => {
 };
 
 /** The decompressed bytes of a file, as chunks; read errors become InputErrors naming the file. */
-export async function* fileBytes(file: string, chunkSize = 1 << 20): AsyncGenerator<Buffer> {
+export async function* fileBytes(file: string, chunkSize = READ_CHUNK): AsyncGenerator<Buffer> {
   let gz: boolean;
   try {
     const st = await stat(file);

@@ -5,12 +5,15 @@
  * know in the stream (the first line of a duplicate key; raw lines of rows the database refused).
  */
 import { CopyBinaryWriter } from '../db/binary-copy.js';
-import { CsvRecords } from './csv-records.js';
+import { CsvRecords, READ_CHUNK } from './csv-records.js';
 import type { DupKey, EncodeContext, RejectDetail, RowEncoder } from './encode-context.js';
 import { type HeaderPlan, resolveHeader } from './header.js';
 import { type SeriesData, SalesEncoder, SeriesLookup } from './sales-encoder.js';
 import { TableEncoder } from './table-encoder.js';
 import { type Layout, type LoadTarget, TARGETS } from './targets.js';
+
+/** COPY chunks of the read chunks' size (see READ_CHUNK: smaller chunks kept the peak RSS low). */
+const COPY_CHUNK = READ_CHUNK;
 
 export interface ParseJob {
   readonly file: string;
@@ -95,7 +98,7 @@ async function pass(
         nextId: job.series.nextId,
       })
     : undefined;
-  let writer: CopyBinaryWriter | null = sink ? new CopyBinaryWriter() : null;
+  let writer: CopyBinaryWriter | null = sink ? new CopyBinaryWriter(COPY_CHUNK) : null;
   let segmentBytes = 0;
   let rejectCount = 0;
   let rowsRead = 0;
@@ -136,7 +139,7 @@ async function pass(
     } else if (segmentBytes >= job.segmentBytes) {
       for (const c of writer.end()) await sink.chunk(c);
       await sink.segmentEnd();
-      writer = new CopyBinaryWriter();
+      writer = new CopyBinaryWriter(COPY_CHUNK);
       segmentBytes = 0;
     }
   };

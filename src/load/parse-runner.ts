@@ -6,10 +6,20 @@
  */
 import { Worker } from 'node:worker_threads';
 import { InputError } from '../db/errors.js';
+import { READ_CHUNK } from './csv-records.js';
 import { type ParseJob, type ParseResult, parseFile } from './parse-file.js';
 
-/** Chunks (about 1 MB each) buffered between the parser and the COPY. */
+/** Chunks (256 KB each) buffered between the parser and the COPY. */
 export const CHUNKS_IN_FLIGHT = 8;
+
+/**
+ * How far the parser may run ahead: a few chunks for a streaming COPY; a whole COPY segment more
+ * when the database takes a segment at once (embedded), so parsing the next one overlaps with it.
+ */
+export function chunksInFlight(job: Pick<ParseJob, 'segmentBytes'>): number {
+  if (!Number.isFinite(job.segmentBytes)) return CHUNKS_IN_FLIGHT;
+  return CHUNKS_IN_FLIGHT + Math.min(256, Math.ceil(job.segmentBytes / READ_CHUNK));
+}
 
 export interface ParseRun {
   /** COPY segments in order; each yields the chunks of one complete binary COPY stream. */
@@ -93,12 +103,13 @@ class Stopped extends Error {}
 
 function runInline(job: ParseJob): ParseRun {
   let stopped = false;
+  const limit = chunksInFlight(job);
   const queue = new ItemQueue(() => {});
   const result = parseFile(job, {
     async chunk(bytes) {
       if (stopped) throw new Stopped('stopped');
       queue.push({ kind: 'chunk', bytes });
-      await queue.roomFor(CHUNKS_IN_FLIGHT);
+      await queue.roomFor(limit);
     },
     segmentEnd() {
       queue.push({ kind: 'segment' });

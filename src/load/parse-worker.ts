@@ -1,14 +1,14 @@
 /**
  * Worker-thread side of the first pass (see parse-runner.ts): parses the file, transfers COPY
- * chunks to the main thread and waits for a credit ('ack') whenever CHUNKS_IN_FLIGHT are unread.
+ * chunks to the main thread and waits for a credit ('ack') whenever `chunksInFlight` are unread.
  */
 import { parentPort, workerData } from 'node:worker_threads';
 import { type ParseJob, parseFile } from './parse-file.js';
-import { CHUNKS_IN_FLIGHT, type WorkerMessage } from './parse-runner.js';
+import { chunksInFlight, type WorkerMessage } from './parse-runner.js';
 
 const port = parentPort!;
 const job = (workerData as { job: ParseJob }).job;
-let credits = CHUNKS_IN_FLIGHT;
+let credits = chunksInFlight(job);
 let waiting: (() => void) | null = null;
 port.on('message', (m) => {
   if (m !== 'ack') return;
