@@ -1,5 +1,6 @@
 import { LarderError } from '../db/errors.js';
-import { chunks, type FeatureCache } from '../publish/feature-cache.js';
+import { setTimeout as sleep } from 'node:timers/promises';
+import { CacheUnavailableError, chunks, type FeatureCache } from '../publish/feature-cache.js';
 import { type KeyLayout, splitItems, unpackInto } from '../publish/layout.js';
 import { NotFoundError } from '../publish/snapshot-catalogue.js';
 import { BadRequestError, type SeriesBatch } from './read-types.js';
@@ -49,8 +50,29 @@ export async function* readAllSeries(
       for (const part of chunks(items, batchSize)) yield { store: st.store, items: part };
     }
   }
+  const keysOf = (t: { store: string; items: string[] }) =>
+    t.items.map((it) => layout.series(o.set, version, t.store, it));
+  // A bulk read may meet a command timeout sized for single reads on a busy server: retry a
+  // batch a few times before giving up, and say what to change if it keeps happening.
+  const getBatch = async (keys: string[]) => {
+    for (let attempt = 1; ; attempt++) {
+      try {
+        return await cache.getBuffers(keys);
+      } catch (err) {
+        if (!(err instanceof CacheUnavailableError) || attempt >= 3) {
+          throw err instanceof CacheUnavailableError
+            ? new CacheUnavailableError(
+                `${err.message} (readAll: try a smaller batchSize or a longer serve.redisTimeoutMs)`,
+                { cause: err },
+              )
+            : err;
+        }
+        await sleep(50 * attempt);
+      }
+    }
+  };
   const fetch = async (t: { store: string; items: string[] }): Promise<SeriesBatch> => {
-    const bufs = await cache.getBuffers(t.items.map((it) => layout.series(o.set, version, t.store, it)));
+    const bufs = await getBatch(keysOf(t));
     const values = new Float32Array(t.items.length * stride);
     bufs.forEach((b, j) => {
       if (!b || b.byteLength !== stride * 4) throw expired();
