@@ -12,6 +12,7 @@ import {
   Struct,
   Utf8,
 } from 'apache-arrow';
+import { LarderError } from '../db/errors.js';
 import type { ExportColumn, ExportType } from './export-layout.js';
 import type { ExportBatch } from './snapshot-reader.js';
 
@@ -40,6 +41,14 @@ export function seriesIds(
     storeText.set(r.series_id, r.store_id);
   }
   return { item, store, itemText, storeText };
+}
+
+/** Thrown when a snapshot row names a series the `series` table does not have. */
+export function unknownSeries(seriesId: number): LarderError {
+  return new LarderError(
+    'SNAPSHOT_SERIES',
+    `snapshot row refers to series_id ${seriesId}, which is not in series`,
+  );
 }
 
 function arrowType(t: ExportType): DataType {
@@ -75,7 +84,9 @@ function utf8(ids: ReadonlyMap<number, Uint8Array>, sid: Int32Array, n: number):
   const offsets = new Int32Array(n + 1);
   let bytes = 0;
   for (let i = 0; i < n; i++) {
-    bytes += ids.get(sid[i]!)!.length;
+    const id = ids.get(sid[i]!);
+    if (id === undefined) throw unknownSeries(sid[i]!);
+    bytes += id.length;
     offsets[i + 1] = bytes;
   }
   const data = new Uint8Array(bytes);

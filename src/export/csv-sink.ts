@@ -1,5 +1,5 @@
 import { formatDay } from '../core/days.js';
-import type { SeriesIds } from './arrow-batch.js';
+import { type SeriesIds, unknownSeries } from './arrow-batch.js';
 import type { ExportLayout } from './export-layout.js';
 import type { HashingFile } from './hashing-file.js';
 import type { ExportBatch } from './snapshot-reader.js';
@@ -46,7 +46,9 @@ export class CsvSink {
     const cells: string[] = new Array(types.length + 1);
     for (let r = 0; r < b.length; r++) {
       const s = sid[r]!;
-      cells[0] = this.item.get(s)!;
+      const item = this.item.get(s);
+      if (item === undefined) throw unknownSeries(s);
+      cells[0] = item;
       cells[1] = this.store.get(s)!;
       for (let c = 1; c < types.length; c++) {
         if (b.nulls[c]![r]) {

@@ -4,7 +4,7 @@ import { formatDay } from '../core/days.js';
 import type { Db } from '../db/database.js';
 import { LarderError } from '../db/errors.js';
 import { openDatabase } from '../db/open.js';
-import { arrowSchema, type SeriesIds, toRecordBatch } from './arrow-batch.js';
+import { arrowSchema, type SeriesIds, toRecordBatch, unknownSeries } from './arrow-batch.js';
 import { exportLayout, type Selection } from './export-layout.js';
 import { loadSeriesIds, type SnapshotManifest, snapshotManifest } from './export-snapshot.js';
 import { findSnapshot, pinSnapshot } from './snapshot-entry.js';
@@ -108,10 +108,9 @@ export async function openSnapshot(
         for await (const { ids, batch } of batches()) {
           const sid = batch.columns[0] as Int32Array;
           for (let r = 0; r < batch.length; r++) {
-            const row: SnapshotRow = {
-              item_id: ids.itemText.get(sid[r]!)!,
-              store_id: ids.storeText.get(sid[r]!)!,
-            };
+            const item = ids.itemText.get(sid[r]!);
+            if (item === undefined) throw unknownSeries(sid[r]!);
+            const row: SnapshotRow = { item_id: item, store_id: ids.storeText.get(sid[r]!)! };
             for (let c = 1; c < types.length; c++) {
               const v = batch.nulls[c]![r] ? null : batch.columns[c]![r]!;
               const t = types[c];
