@@ -6,6 +6,7 @@ import { type DuckDBConnection, DuckDBInstance } from '@duckdb/node-api';
 import { tableFromIPC } from 'apache-arrow';
 import { afterAll, beforeAll, describe, expect, test } from 'vitest';
 import { exportSnapshot } from '../../src/export/export-snapshot.js';
+import { openSnapshot } from '../../src/export/open-snapshot.js';
 import { useTestDb } from '../helpers/db.js';
 import { makeSnapshot } from './export-fixtures.js';
 
@@ -288,5 +289,20 @@ describe('order, atomicity and errors', () => {
     await expect(
       exportSnapshot(db, config, { set: 'daily', cutoff: '2024-01-31', out, format: 'xlsx' as 'csv' }),
     ).rejects.toThrow(/format must be one of parquet, csv, arrow/);
+  });
+
+  test('an opened snapshot that was rebuilt since refuses to mix builds', async () => {
+    const { db } = t();
+    const spec = { ...SPEC, set: 'rebuilt', table: 'snap_rebuilt', series: 2, days: 10 };
+    await makeSnapshot(db, spec);
+    const opened = await openSnapshot({ set: 'rebuilt', cutoff: SPEC.cutoff, db });
+    await makeSnapshot(db, spec); // a new catalogue row, as a rebuild makes
+    await expect(
+      (async () => {
+        for await (const _ of opened) {
+          // unreachable
+        }
+      })(),
+    ).rejects.toThrow(/was rebuilt since it was opened/);
   });
 });
