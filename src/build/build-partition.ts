@@ -43,8 +43,12 @@ export interface PartitionOptions {
 
 const day = (s: string) => parseDay(s)!;
 
-/** Everything one partition's computation needs, read from the database. */
-interface PartitionData {
+/**
+ * Everything one partition's computation needs, read from the database. Exported (with
+ * `readPartition`) for the job runner's incremental refresh, which reads a partition for a
+ * narrower window of anchor days and computes only the rows a new day can change.
+ */
+export interface PartitionData {
   readonly series: PartitionSeries[];
   readonly base: number;
   readonly env: PartitionEnv;
@@ -53,7 +57,7 @@ interface PartitionData {
   readonly reads: Record<string, number>;
 }
 
-async function readPartition(
+export async function readPartition(
   s: DbSession,
   plan: BuildPlan,
   set: ResolvedFeatureSet,
