@@ -64,28 +64,25 @@ async function* csvRows(path: string): AsyncGenerator<RawForecast> {
     parse({
       columns: false,
       bom: true,
-      trim: true,
+      // Ids are compared exactly as written; days and values are trimmed where they are parsed.
+      trim: false,
       skip_empty_lines: true,
       relax_column_count: false,
       info: true,
     }),
   );
   let header: string[] | undefined;
+  let at: number[] = [];
   try {
     for await (const rec of parser as AsyncIterable<{ record: string[]; info: { lines: number } }>) {
       if (!header) {
-        header = rec.record;
+        header = rec.record.map((h) => h.trim());
         checkHeader(path, header);
+        at = FORECAST_COLUMNS.map((c) => header!.indexOf(c));
         continue;
       }
-      const at = (c: string) => rec.record[header!.indexOf(c)];
-      yield {
-        line: rec.info.lines,
-        item: at('item_id'),
-        store: at('store_id'),
-        day: at('day'),
-        value: at('value'),
-      };
+      const r = rec.record;
+      yield { line: rec.info.lines, item: r[at[0]!], store: r[at[1]!], day: r[at[2]!], value: r[at[3]!] };
     }
   } catch (err) {
     if (err instanceof InputError) throw err;
