@@ -5,6 +5,7 @@ import { KeyLayout } from '../../src/publish/layout.js';
 import { publishSnapshot } from '../../src/publish/publish-snapshot.js';
 import { createRedisCache } from '../../src/publish/redis-cache.js';
 import { createReader, type Reader } from '../../src/serve/reader.js';
+import { cacheScript, SCRIPT_ANSWERS } from '../helpers/cache-script.js';
 import { schemaFor, useTestDb } from '../helpers/db.js';
 import { RedisClusterProcess } from '../helpers/redis-process.js';
 import { createSnapshotFixture, type SnapshotFixture } from '../helpers/snapshot-fixture.js';
@@ -52,6 +53,10 @@ async function ownersOf(keys: string[]): Promise<number[]> {
 }
 
 describe('Redis Cluster (three masters)', () => {
+  it('answers the cache operations as a single Redis does, multi-key commands split by slot', async () => {
+    expect(await cacheScript(cache, prefix)).toEqual(SCRIPT_ANSWERS);
+  });
+
   it('publishes across the masters, each store on one slot, and reads back through the Cluster client', async () => {
     expect(cache.kind).toBe('cluster');
     const res = await publishSnapshot(env().db, cache, env().config, { set: 'daily', cutoff: a.cutoff });
