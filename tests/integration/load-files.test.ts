@@ -118,6 +118,25 @@ describe('a small chain', () => {
   });
 });
 
+test('a hard error deep in a file, after rows reached the COPY, stores nothing (inline and in a worker)', async () => {
+  const { db, config } = t();
+  await loadFiles(db, config, { files: baseFiles() });
+  const before = await checksums(db);
+  const good = salesLong(['I1', 'I2'], ['S7', 'S8'], days('2020-01-01', 3000));
+  const path = file('deep.csv', Buffer.concat([Buffer.from(good), Buffer.from([0xc0, 0x80, 0x0a])]));
+  const lines = good.split('\n').length;
+  for (const parseInWorker of [false, true]) {
+    const err = await loadFiles(
+      db,
+      config,
+      { files: { sales: path } },
+      { parseInWorker, chunkSize: 4096 },
+    ).catch((e: unknown) => e);
+    expect((err as Error).message).toBe(`${path}: line ${lines}: invalid UTF-8 (byte offset ${good.length})`);
+    expect(await checksums(db)).toEqual(before);
+  }
+});
+
 describe('replace and append', () => {
   test('replace: a corrected week replaces exactly those keys and days, never touching others', async () => {
     const { db, config } = t();
