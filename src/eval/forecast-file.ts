@@ -1,8 +1,8 @@
 import { createHash } from 'node:crypto';
-import { createReadStream, readFileSync } from 'node:fs';
-import { parse } from 'csv-parse';
+import { readFileSync } from 'node:fs';
 import { formatDay, parseDay } from '../core/days.js';
 import { InputError } from '../db/errors.js';
+import { CsvRecords } from '../load/csv-records.js';
 import { KEY_SEPARATOR } from './hierarchy-levels.js';
 
 /**
@@ -19,6 +19,8 @@ export interface RawForecast {
   readonly store: unknown;
   readonly day: unknown;
   readonly value: unknown;
+  /** Set when the row could not be split into the four fields. */
+  readonly problem?: string;
 }
 
 export interface ForecastSource {
@@ -27,7 +29,8 @@ export interface ForecastSource {
   /** 'line' for CSV, 'row' for Parquet: what `RawForecast.line` counts. */
   readonly unit: 'line' | 'row';
   readonly sha256: string;
-  rows(): AsyncIterable<RawForecast>;
+  /** Calls `visit` for every data row, in file order. */
+  each(visit: (r: RawForecast) => void): Promise<void>;
 }
 
 /** Opens a forecast file by extension (.csv, .parquet / .pq). */
@@ -40,9 +43,11 @@ export function openForecastFile(path: string): ForecastSource {
     throw new InputError(`${path}: cannot read forecasts file: ${(err as Error).message}`, { cause: err });
   }
   const sha256 = createHash('sha256').update(bytes).digest('hex');
-  if (lower.endsWith('.csv')) return { path, kind: 'csv', unit: 'line', sha256, rows: () => csvRows(path) };
+  if (lower.endsWith('.csv') || lower.endsWith('.csv.gz')) {
+    return { path, kind: 'csv', unit: 'line', sha256, each: (visit) => csvRows(path, visit) };
+  }
   if (lower.endsWith('.parquet') || lower.endsWith('.pq')) {
-    return { path, kind: 'parquet', unit: 'row', sha256, rows: () => parquetRows(path, bytes) };
+    return { path, kind: 'parquet', unit: 'row', sha256, each: (visit) => parquetRows(path, bytes, visit) };
   }
   throw new InputError(`${path}: forecasts must be a .csv or .parquet file`);
 }
@@ -59,40 +64,32 @@ function checkHeader(path: string, columns: readonly string[]): void {
   }
 }
 
-async function* csvRows(path: string): AsyncGenerator<RawForecast> {
-  const parser = createReadStream(path).pipe(
-    parse({
-      columns: false,
-      bom: true,
-      // Ids are compared exactly as written; days and values are trimmed where they are parsed.
-      trim: false,
-      skip_empty_lines: true,
-      relax_column_count: false,
-      info: true,
-    }),
-  );
-  let header: string[] | undefined;
-  let at: number[] = [];
-  try {
-    for await (const rec of parser as AsyncIterable<{ record: string[]; info: { lines: number } }>) {
-      if (!header) {
-        header = rec.record.map((h) => h.trim());
-        checkHeader(path, header);
-        at = FORECAST_COLUMNS.map((c) => header!.indexOf(c));
-        continue;
-      }
-      const r = rec.record;
-      yield { line: rec.info.lines, item: r[at[0]!], store: r[at[1]!], day: r[at[2]!], value: r[at[3]!] };
+/**
+ * CSV through the loader's record reader (plain or gzip, UTF-8 checked, delimiter sniffed, exact
+ * physical line numbers). A row with the wrong number of fields is reported like a bad value.
+ */
+async function csvRows(path: string, visit: (r: RawForecast) => void): Promise<void> {
+  let at: number[] | undefined;
+  let width = 0;
+  await new CsvRecords(path).read((fields, line) => {
+    if (!at) {
+      const header = fields.map((h) => h.trim());
+      checkHeader(path, header);
+      at = FORECAST_COLUMNS.map((c) => header.indexOf(c));
+      width = header.length;
+      return;
     }
-  } catch (err) {
-    if (err instanceof InputError) throw err;
-    throw new InputError(`${path}: not readable as CSV: ${(err as Error).message}`, { cause: err });
-  }
-  if (!header)
-    throw new InputError(`${path}: empty file (a header row ${FORECAST_COLUMNS.join(',')} is required)`);
+    if (fields.length !== width) {
+      const problem = `${fields.length} field(s), expected ${width}`;
+      visit({ line, item: fields[at[0]!], store: fields[at[1]!], day: undefined, value: undefined, problem });
+      return;
+    }
+    // Ids are compared exactly as written; days and values are trimmed where they are parsed.
+    visit({ line, item: fields[at[0]!], store: fields[at[1]!], day: fields[at[2]!], value: fields[at[3]!] });
+  });
 }
 
-async function* parquetRows(path: string, bytes: Buffer): AsyncGenerator<RawForecast> {
+async function parquetRows(path: string, bytes: Buffer, visit: (r: RawForecast) => void): Promise<void> {
   const { parquetMetadata, parquetReadObjects } = await import('hyparquet');
   const file = bytes.buffer.slice(bytes.byteOffset, bytes.byteOffset + bytes.byteLength) as ArrayBuffer;
   let names: string[];
@@ -109,7 +106,7 @@ async function* parquetRows(path: string, bytes: Buffer): AsyncGenerator<RawFore
   let line = 0;
   for (const r of rows) {
     line++;
-    yield { line, item: r.item_id, store: r.store_id, day: r.day, value: r.value };
+    visit({ line, item: r.item_id, store: r.store_id, day: r.day, value: r.value });
   }
 }
 
@@ -176,21 +173,25 @@ export async function readForecasts(source: ForecastSource, frame: ForecastFrame
   const cellValue: number[] = [];
   const lineOf: number[] = [];
   let maxOffset = 0;
-  for await (const r of source.rows()) {
+  await source.each((r) => {
     const item = typeof r.item === 'string' ? r.item : r.item == null ? '' : String(r.item);
     const store = typeof r.store === 'string' ? r.store : r.store == null ? '' : String(r.store);
     const key = `${item}/${store}`;
+    if (r.problem !== undefined) {
+      bad.format.add(`${where(r.line)} ${key}: ${r.problem}`);
+      return;
+    }
     const d = toDay(r.day);
     const v = toNumber(r.value);
     if (d === null) {
       bad.format.add(`${where(r.line)} ${key}: day '${String(r.day)}' is not a valid day (YYYY-MM-DD)`);
-      continue;
+      return;
     }
     if (!Number.isFinite(v)) {
       bad.format.add(
         `${where(r.line)} ${key} ${formatDay(d)}: value '${String(r.value)}' is not a finite number`,
       );
-      continue;
+      return;
     }
     if (v < 0) bad.negative.add(`${where(r.line)} ${key} ${formatDay(d)}: negative value ${v}`);
     const off = d - frame.cutoff;
@@ -201,21 +202,21 @@ export async function readForecasts(source: ForecastSource, frame: ForecastFrame
           ? `after the cutoff ${formatDay(frame.cutoff)}`
           : `${formatDay(frame.cutoff + 1)}..${formatDay(frame.cutoff + h)}`;
       bad.outside.add(`${where(r.line)} ${key}: day ${formatDay(d)} is outside the horizon ${span}`);
-      continue;
+      return;
     }
     const s = frame.index.get(`${item}${KEY_SEPARATOR}${store}`);
     if (s === undefined) {
       bad.extra.add(
         `${where(r.line)} ${key}: not an evaluated series (unknown, or no sale on or before the cutoff)`,
       );
-      continue;
+      return;
     }
     seriesOf.push(s);
     offsetOf.push(off);
     cellValue.push(v);
     lineOf.push(r.line);
     if (off > maxOffset) maxOffset = off;
-  }
+  });
   const horizon = frame.horizon ?? maxOffset;
   const n = frame.index.size;
   const values = new Float64Array(n * horizon).fill(Number.NaN);

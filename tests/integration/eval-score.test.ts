@@ -127,6 +127,11 @@ describe('scoring on the REFERENCES.md §5.3 chain', () => {
       [...GOOD.slice(0, 4), 'B,S1,2024-02-30,2'],
       /unreadable rows \(1\):\n\s+\S+unreadable.csv:5 B\/S1: day '2024-02-30'/,
     ],
+    [
+      'ragged',
+      [...GOOD.slice(0, 4), 'B,S1,2024-01-10'],
+      /unreadable rows \(1\):\n\s+\S+ragged.csv:5 B\/S1: 3 field\(s\), expected 4/,
+    ],
   ];
   for (const [kind, lines, message] of bad) {
     test(`a file with ${kind} rows is refused with its offenders and nothing is written`, async () => {
