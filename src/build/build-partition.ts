@@ -1,9 +1,9 @@
 import type { Config } from '../config/config.js';
 import { parseDay } from '../core/days.js';
-import { CopyBinaryWriter } from '../db/binary-copy.js';
 import { type Db, type DbSession, quoteIdent } from '../db/database.js';
 import { LarderError, UsageError } from '../db/errors.js';
 import { calendarTable } from '../features/calendar.js';
+import { departmentMeans } from '../features/prices.js';
 import type { GroupSeries, PartitionEnv, SeriesInput } from '../features/family.js';
 import type { ResolvedFeatureSet } from '../features/feature-set.js';
 import type { GroupLevel } from '../features/group-levels.js';
@@ -21,6 +21,7 @@ import {
   storeGroups,
 } from './partition-input.js';
 import { type RowLayout, seriesRows, trainingOrigins } from './series-rows.js';
+import { SnapshotEncoder } from './snapshot-encoder.js';
 
 export interface PartitionResult {
   readonly partition: string;
@@ -95,12 +96,14 @@ export async function readPartition(
   const needs = set.families.map((f) => f.family.needs(f.params, set.shape));
   let prices: PartitionEnv['prices'] = null;
   let deptPrices: PartitionEnv['deptPrices'] = null;
+  let deptMeans: PartitionEnv['deptMeans'] = null;
   let departmentOf: PartitionEnv['departmentOf'] = null;
   if (needs.some((n) => n.prices)) {
     departmentOf = await readDepartments(s);
     const p = await readPartitionPrices(s, store, day(plan.priceBoundary), departmentOf);
     prices = p.prices;
     deptPrices = p.deptPrices;
+    deptMeans = departmentMeans(p.deptPrices);
     lap('pricesMs');
   }
   const anchorLo = day(plan.anchorLo);
@@ -122,6 +125,7 @@ export async function readPartition(
     calendar,
     prices,
     deptPrices,
+    deptMeans,
     departmentOf,
     group: (level, key) => (key === null ? null : (groups.get(level)?.get(key) ?? null)),
     cache: new Map(),
@@ -148,7 +152,7 @@ async function* snapshotRows(
         : new Int32Array(0),
   };
   const F = set.columns.length;
-  const w = new CopyBinaryWriter();
+  const w = new SnapshotEncoder(F);
   for (const x of data.series) {
     const t0 = performance.now();
     const rows = seriesRows(layout, data.base, x.units);
@@ -165,19 +169,7 @@ async function* snapshotRows(
       itemId: x.hierarchy.itemId,
     };
     const cols = computeSeriesFeatures(set, input, data.env);
-    const origin = rows.origin;
-    for (let r = 0; r < rows.n; r++) {
-      w.row(5 + F);
-      w.int4(x.seriesId);
-      w.date(rows.day[r]!);
-      if (origin) w.date(origin[r]!);
-      else w.null();
-      const predict = rows.isPredict[r] === 1;
-      w.bool(predict);
-      if (predict) w.null();
-      else w.int4(rows.label[r]!);
-      for (let c = 0; c < F; c++) w.float8(cols[c]![r]!);
-    }
+    w.series(x.seriesId, rows, cols);
     counts.rows += rows.n;
     counts.train += rows.trainRows;
     // Free the series' input once written; a store's rows are otherwise all held to the end.

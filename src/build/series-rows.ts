@@ -38,60 +38,53 @@ export function seriesRows(layout: RowLayout, base: number, units: Float64Array)
     const i = t - base;
     return i >= 0 && i < units.length && !Number.isNaN(units[i]!);
   };
-  const at = (t: number) => units[t - base]!;
-  const day: number[] = [];
-  const anchor: number[] = [];
-  const limit: number[] = [];
-  const origin: number[] = [];
-  const label: number[] = [];
+  // Count first, then fill typed arrays: no intermediate JS arrays on the build's hot path.
   let train = 0;
   if (layout.mode === 'shift') {
+    for (let t = layout.from; t <= C; t++) if (has(t)) train++;
+  } else {
+    for (const o of layout.origins) for (let h = 1; h <= H && o + h <= C; h++) if (has(o + h)) train++;
+  }
+  const n = train + H;
+  const day = new Int32Array(n);
+  const anchor = new Int32Array(n);
+  const limit = new Int32Array(n);
+  const label = new Float64Array(n);
+  const origin = layout.mode === 'origin' ? new Int32Array(n) : null;
+  let r = 0;
+  if (origin === null) {
     for (let t = layout.from; t <= C; t++) {
       if (!has(t)) continue;
-      day.push(t);
-      label.push(at(t));
-      train++;
+      day[r] = t;
+      label[r++] = units[t - base]!;
     }
     for (let t = C + 1; t <= C + H; t++) {
-      day.push(t);
-      label.push(Number.NaN);
+      day[r] = t;
+      label[r++] = Number.NaN;
     }
-    for (const t of day) {
-      anchor.push(t);
-      limit.push(C);
-    }
+    anchor.set(day);
+    limit.fill(C);
   } else {
     for (const o of layout.origins) {
       for (let h = 1; h <= H && o + h <= C; h++) {
         const t = o + h;
         if (!has(t)) continue;
-        day.push(t);
-        origin.push(o);
-        label.push(at(t));
-        train++;
+        day[r] = t;
+        origin[r] = o;
+        label[r++] = units[t - base]!;
       }
     }
     for (let h = 1; h <= H; h++) {
-      day.push(C + h);
-      origin.push(C);
-      label.push(Number.NaN);
+      day[r] = C + h;
+      origin[r] = C;
+      label[r++] = Number.NaN;
     }
-    for (const o of origin) {
-      anchor.push(o + 1);
-      limit.push(o);
+    for (let i = 0; i < n; i++) {
+      anchor[i] = origin[i]! + 1;
+      limit[i] = origin[i]!;
     }
   }
-  const n = day.length;
   const isPredict = new Uint8Array(n);
   isPredict.fill(1, train);
-  return {
-    n,
-    day: Int32Array.from(day),
-    anchor: Int32Array.from(anchor),
-    limit: Int32Array.from(limit),
-    origin: layout.mode === 'origin' ? Int32Array.from(origin) : null,
-    isPredict,
-    label: Float64Array.from(label),
-    trainRows: train,
-  };
+  return { n, day, anchor, limit, origin, isPredict, label, trainRows: train };
 }

@@ -207,7 +207,12 @@ export const calendar = defineFamily<CalendarParams>({
   compute(p, set, s, env, out) {
     const table = env.calendar;
     if (!table) throw new Error('calendar table not prepared');
-    const names = calendarColumns(p, set).map((c) => c.name);
+    const key = `calendar-columns\u001f${set.mode}`;
+    let names = env.cache.get(key) as string[] | undefined;
+    if (!names) {
+      names = calendarColumns(p, set).map((c) => c.name);
+      env.cache.set(key, names);
+    }
     const { rows } = s;
     for (let c = 0; c < names.length; c++) {
       const col = out[c]!;

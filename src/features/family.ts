@@ -118,6 +118,8 @@ export interface PartitionEnv {
   readonly prices: ReadonlyMap<string, ItemPrices> | null;
   /** Per department and week: price -> number of the store's items at that price. */
   readonly deptPrices: ReadonlyMap<string, ReadonlyMap<number, ReadonlyMap<number, number>>> | null;
+  /** Per department and week: the mean price of the store's items. */
+  readonly deptMeans: ReadonlyMap<string, ReadonlyMap<number, number>> | null;
   readonly departmentOf: ReadonlyMap<string, string | null> | null;
   group(level: GroupLevel, key: string | null): GroupSeries | null;
   readonly cache: Map<string, unknown>;

@@ -1,6 +1,6 @@
 import { z } from 'zod';
 import { isoWeekday } from '../core/days.js';
-import { defineFamily, type FeatureColumn, type ItemPrices, NO_NEEDS, type PartitionEnv } from './family.js';
+import { defineFamily, type FeatureColumn, type ItemPrices, NO_NEEDS } from './family.js';
 
 export const PRICE_FEATURES = [
   'price',
@@ -125,23 +125,25 @@ function meanOf(prices: Float64Array, lo: number, hi: number): number {
   return s / (hi - lo + 1);
 }
 
-/** Mean price of a department's items in one week (cached per partition). */
-function departmentMean(env: PartitionEnv, dept: string, week: number): number {
-  const key = `price-dept\u001f${dept}\u001f${week}`;
-  const hit = env.cache.get(key);
-  if (hit !== undefined) return hit as number;
-  const counts = env.deptPrices?.get(dept)?.get(week);
-  let s = 0;
-  let c = 0;
-  if (counts) {
-    for (const [p, k] of counts) {
-      s += p * k;
-      c += k;
+/** Mean price of each department's items per week, from the price counts. */
+export function departmentMeans(
+  deptPrices: ReadonlyMap<string, ReadonlyMap<number, ReadonlyMap<number, number>>>,
+): Map<string, Map<number, number>> {
+  const out = new Map<string, Map<number, number>>();
+  for (const [dept, byWeek] of deptPrices) {
+    const means = new Map<number, number>();
+    for (const [week, counts] of byWeek) {
+      let s = 0;
+      let c = 0;
+      for (const [p, k] of counts) {
+        s += p * k;
+        c += k;
+      }
+      means.set(week, s / c);
     }
+    out.set(dept, means);
   }
-  const m = c > 0 ? s / c : Number.NaN;
-  env.cache.set(key, m);
-  return m;
+  return out;
 }
 
 /** Index of the price row a target day uses, or -1: its own week within the price boundary, else the last known. */
@@ -194,9 +196,8 @@ export const prices = defineFamily<PricesParams>({
     }
     const deptId = env.departmentOf?.get(s.itemId) ?? null;
     const dept = deptId === null ? null : (env.deptPrices?.get(deptId) ?? null);
-    const stats = priceRowStats(item, dept, (wk) =>
-      deptId === null ? Number.NaN : departmentMean(env, deptId, wk),
-    );
+    const means = deptId === null ? undefined : env.deptMeans?.get(deptId);
+    const stats = priceRowStats(item, dept, (wk) => means?.get(wk) ?? Number.NaN);
     const idx = new Int32Array(rows.n);
     for (let r = 0; r < rows.n; r++)
       idx[r] = priceRowFor(item.weeks, rows.day[r]!, env.weekStart, env.priceBoundary);

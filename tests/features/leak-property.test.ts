@@ -68,6 +68,7 @@ function features(set: ReturnType<typeof unsafeFeatureSet>, store: Store, C: num
     calendar: null,
     prices: null,
     deptPrices: null,
+    deptMeans: null,
     departmentOf: null,
     group: keyed,
     cache: new Map(),
