@@ -305,4 +305,36 @@ describe('order, atomicity and errors', () => {
       })(),
     ).rejects.toThrow(/was rebuilt since it was opened/);
   });
+
+  test('an origin-mode snapshot exports its origin column, rows in (series, origin, day) order', async () => {
+    const { db, config } = t();
+    await makeSnapshot(db, {
+      ...SPEC,
+      set: 'origins',
+      table: 'snap_origins',
+      series: 3,
+      days: 5,
+      horizon: 2,
+      mode: 'origin',
+      scramble: true,
+    });
+    const out = join(dir, 'origins.parquet');
+    const r = await exportSnapshot(db, config, { set: 'origins', cutoff: SPEC.cutoff, out });
+    expect(r.rowCount).toBe(3 * 7 * 2);
+    const d = await duck.runAndReadAll(
+      `SELECT item_id, strftime(origin, '%Y-%m-%d') AS o, strftime(day, '%Y-%m-%d') AS d FROM read_parquet('${out}')`,
+    );
+    expect(d.columnNames()).toEqual(['item_id', 'o', 'd']);
+    const rows = d.getRows().map((x) => x.map(String));
+    const want = (
+      await db.query<{ item_id: string; o: string; d: string }>(
+        `SELECT s.item_id, x.origin::text AS o, x.day::text AS d FROM snap_origins x JOIN series s USING (series_id)
+         ORDER BY x.series_id, x.origin, x.day`,
+      )
+    ).rows.map((x) => [x.item_id, x.o, x.d]);
+    expect(rows).toEqual(want);
+    const m = JSON.parse(readFileSync(r.manifestPath, 'utf8'));
+    expect(m.columns[3]).toMatchObject({ name: 'origin', type: 'date' });
+    expect(m.mode).toBe('origin');
+  });
 });
