@@ -1,7 +1,7 @@
 import type { z } from 'zod';
 import { checkParams, defineCheck, share } from './check-definition.js';
 import type { FindingDraft } from './finding.js';
-import { soldWeeks } from './sold-weeks.js';
+import { unpricedWeeks } from './sold-weeks.js';
 
 export const priceCoverageParams = checkParams(['price-coverage'], {
   /** Largest acceptable share of sold series-weeks without a price (common practice: 5%). */
@@ -25,22 +25,28 @@ export const priceCoverage = defineCheck({
       'SELECT series_id, store_id FROM series',
     );
     for (const r of res.rows) storeOf.set(r.series_id, r.store_id);
-    const priced = await ctx.prices();
+    const soldBy = new Map<number, Int32Array>();
+    const [priced] = await Promise.all([
+      ctx.prices(),
+      ctx.sales({
+        series(s) {
+          soldBy.set(s.seriesId, s.soldWeeks());
+        },
+      }),
+    ]);
     const byStore = new Map<string, { sold: number; unpriced: number }>();
     let sold = 0;
     let unpriced = 0;
-    await ctx.sales({
-      series(s) {
-        const c = soldWeeks(s, priced.pricedWeeks.get(s.seriesId), ctx.weekStart);
-        sold += c.sold;
-        unpriced += c.unpriced;
-        const store = storeOf.get(s.seriesId) ?? '';
-        const t = byStore.get(store) ?? { sold: 0, unpriced: 0 };
-        t.sold += c.sold;
-        t.unpriced += c.unpriced;
-        byStore.set(store, t);
-      },
-    });
+    for (const [seriesId, weeks] of soldBy) {
+      const c = unpricedWeeks(weeks, priced.pricedWeeks.get(seriesId));
+      sold += c.sold;
+      unpriced += c.unpriced;
+      const store = storeOf.get(seriesId) ?? '';
+      const t = byStore.get(store) ?? { sold: 0, unpriced: 0 };
+      t.sold += c.sold;
+      t.unpriced += c.unpriced;
+      byStore.set(store, t);
+    }
     const drafts: FindingDraft[] = [];
     const pct = (x: number) => `${(100 * x).toFixed(1)}%`;
     if (sold > 0 && unpriced / sold > limit) {

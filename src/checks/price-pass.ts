@@ -1,6 +1,6 @@
 import { formatDay } from '../core/days.js';
 import { readCopyBinary } from '../db/binary-copy.js';
-import type { DbSession } from '../db/database.js';
+import type { Db } from '../db/database.js';
 import type { Guarded } from './shared-pass.js';
 
 /** The weekly prices of one item in one store, in week order; arrays are reused for the next group. */
@@ -26,80 +26,87 @@ export interface PricePassResult {
   readonly pricedWeeks: ReadonlyMap<number, Int32Array>;
 }
 
+const weekFilter = (cutoff: number | null) =>
+  cutoff === null ? '' : ` WHERE week_start <= DATE '${formatDay(cutoff)}'`;
+
+/** Week starts and prices in key order; the key itself comes from `pricesGroupsSql`, not per row. */
 export function pricesCopySql(cutoff: number | null): string {
-  const where = cutoff === null ? '' : ` WHERE week_start <= DATE '${formatDay(cutoff)}'`;
   // The primary key's order, so PostgreSQL reads it by index without sorting.
   return (
-    'COPY (SELECT item_id, store_id, week_start, price::float8 FROM prices' +
-    `${where} ORDER BY item_id, store_id, week_start) TO STDOUT (FORMAT binary)`
+    `COPY (SELECT week_start, price::float8 FROM prices${weekFilter(cutoff)} ` +
+    'ORDER BY item_id, store_id, week_start) TO STDOUT (FORMAT binary)'
   );
 }
 
-/** Streams prices once in key order, grouping rows by item and store for the visitors. */
+/** Each item and store with its row count, in the same order as `pricesCopySql`. */
+export function pricesGroupsSql(cutoff: number | null): string {
+  return `SELECT item_id, store_id, count(*)::int AS n FROM prices${weekFilter(cutoff)} GROUP BY item_id, store_id ORDER BY item_id, store_id`;
+}
+
+/**
+ * Streams prices once in key order, grouping rows by item and store for the visitors. The ids
+ * come from one grouped query and the rows from a COPY of just (week_start, price), both in one
+ * repeatable-read transaction: decoding two text ids on each of millions of rows would cost more
+ * than the rows themselves.
+ */
 export async function runPricePass(
-  db: DbSession,
+  db: Db,
   cutoff: number | null,
   visitors: ReadonlyArray<Guarded<PriceVisitor>>,
 ): Promise<PricePassResult> {
-  // ~30k series at full scale: one small query, then lookups in memory instead of a join.
-  const seriesIds = new Map<string, number>();
-  const res = await db.query<{ item_id: string; store_id: string; series_id: number }>(
-    'SELECT item_id, store_id, series_id FROM series',
-  );
-  for (const r of res.rows) seriesIds.set(`${r.item_id}\u0000${r.store_id}`, r.series_id);
+  return db.transaction(async (tx) => {
+    await tx.exec('SET TRANSACTION ISOLATION LEVEL REPEATABLE READ READ ONLY');
+    // ~30k series at full scale: one small query, then lookups in memory instead of a join.
+    const seriesIds = new Map<string, number>();
+    const res = await tx.query<{ item_id: string; store_id: string; series_id: number }>(
+      'SELECT item_id, store_id, series_id FROM series',
+    );
+    for (const r of res.rows) seriesIds.set(`${r.item_id}\u0000${r.store_id}`, r.series_id);
+    const groups = (await tx.query<{ item_id: string; store_id: string; n: number }>(pricesGroupsSql(cutoff)))
+      .rows;
 
-  const pricedWeeks = new Map<number, Int32Array>();
-  let weeks = new Int32Array(1024);
-  let prices = new Float64Array(1024);
-  let n = 0;
-  let item = '';
-  let store = '';
-  let rows = 0;
-  let groups = 0;
+    const pricedWeeks = new Map<number, Int32Array>();
+    let g = 0;
+    let weeks = new Int32Array(Math.max(1, groups[0]?.n ?? 1));
+    let prices = new Float64Array(weeks.length);
+    let n = 0;
+    let rows = 0;
 
-  const emit = () => {
-    if (n === 0) return;
-    groups++;
-    const seriesId = seriesIds.get(`${item}\u0000${store}`) ?? null;
-    if (seriesId !== null) pricedWeeks.set(seriesId, weeks.slice(0, n));
-    const view: PriceSeriesView = {
-      itemId: item,
-      storeId: store,
-      seriesId,
-      weeks: weeks.subarray(0, n),
-      prices: prices.subarray(0, n),
-      n,
+    const emit = () => {
+      const grp = groups[g]!;
+      const seriesId = seriesIds.get(`${grp.item_id}\u0000${grp.store_id}`) ?? null;
+      if (seriesId !== null) pricedWeeks.set(seriesId, weeks.slice(0, n));
+      const view: PriceSeriesView = {
+        itemId: grp.item_id,
+        storeId: grp.store_id,
+        seriesId,
+        weeks: weeks.subarray(0, n),
+        prices: prices.subarray(0, n),
+        n,
+      };
+      for (const v of visitors) v.call((x) => x.prices(view));
+      g++;
+      n = 0;
+      const next = groups[g]?.n ?? 0;
+      if (next > weeks.length) {
+        weeks = new Int32Array(next);
+        prices = new Float64Array(next);
+      }
     };
-    for (const v of visitors) v.call((x) => x.prices(view));
-  };
 
-  const types = ['text', 'text', 'date', 'float8'] as const;
-  for await (const batch of readCopyBinary(db.copyTo(pricesCopySql(cutoff)), types)) {
-    const it = batch.columns[0] as string[];
-    const st = batch.columns[1] as string[];
-    const wk = batch.columns[2] as Int32Array;
-    const pr = batch.columns[3] as Float64Array;
-    rows += batch.length;
-    for (let i = 0; i < batch.length; i++) {
-      if (it[i] !== item || st[i] !== store) {
-        emit();
-        item = it[i]!;
-        store = st[i]!;
-        n = 0;
+    for await (const batch of readCopyBinary(tx.copyTo(pricesCopySql(cutoff)), ['date', 'float8'])) {
+      const wk = batch.columns[0] as Int32Array;
+      const pr = batch.columns[1] as Float64Array;
+      for (let i = 0; i < batch.length; i++) {
+        if (g >= groups.length) throw new Error('prices changed during the prices pass');
+        weeks[n] = wk[i]!;
+        prices[n] = pr[i]!;
+        n++;
+        rows++;
+        if (n === groups[g]!.n) emit();
       }
-      if (n === weeks.length) {
-        const w2 = new Int32Array(n * 2);
-        w2.set(weeks);
-        weeks = w2;
-        const p2 = new Float64Array(n * 2);
-        p2.set(prices);
-        prices = p2;
-      }
-      weeks[n] = wk[i]!;
-      prices[n] = pr[i]!;
-      n++;
     }
-  }
-  emit();
-  return { rows, groups, pricedWeeks };
+    if (g !== groups.length || n !== 0) throw new Error('prices changed during the prices pass');
+    return { rows, groups: groups.length, pricedWeeks };
+  });
 }

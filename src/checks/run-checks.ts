@@ -127,14 +127,13 @@ export async function runChecks(
     timed('pass:prices', () => runPricePass(db, cutoff, v)),
   );
   let salesResult: SalesPassResult | undefined;
-  const salesPass = new SharedPass<SeriesVisitor, SalesPassResult>(
-    readers('sales'),
-    async (v) => {
-      salesResult = await timed('pass:sales', () => runSalesPass(db, cutoff, v));
-      return salesResult;
-    },
-    pricePass.settled,
-  );
+  // The two passes run side by side (checks that need both match them up afterwards).
+  const salesPass = new SharedPass<SeriesVisitor, SalesPassResult>(readers('sales'), async (v) => {
+    salesResult = await timed('pass:sales', () =>
+      runSalesPass(db, cutoff, v, (d) => retailWeekStart(d, weekStartsOn)),
+    );
+    return salesResult;
+  });
 
   const outcomes = await Promise.all(
     selected.map(async (c) => {
@@ -161,11 +160,6 @@ export async function runChecks(
           return pricePass.subscribe(visitor);
         },
         sales(visitor) {
-          // The sales pass waits for the prices pass: a check that moved on to sales gives up prices.
-          if (c.reads.includes('prices') && !joined.has('prices')) {
-            joined.add('prices');
-            pricePass.release();
-          }
           join('sales');
           return salesPass.subscribe(visitor);
         },

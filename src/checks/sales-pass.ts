@@ -2,6 +2,7 @@ import { formatDay } from '../core/days.js';
 import { readCopyBinary } from '../db/binary-copy.js';
 import type { DbSession } from '../db/database.js';
 import type { Guarded } from './shared-pass.js';
+import { soldWeekStarts } from './sold-weeks.js';
 
 /**
  * One series as the sales pass hands it to visitors: a dense daily array from the series' first
@@ -16,6 +17,11 @@ export interface SeriesView {
   readonly units: Float64Array;
   /** Stored rows of the series. */
   readonly rows: number;
+  /**
+   * First days of the retail weeks in which the series sold (computed once per series however
+   * many visitors ask; a fresh array each series, so it may be kept).
+   */
+  soldWeeks(): Int32Array;
 }
 
 export interface SeriesVisitor {
@@ -94,6 +100,7 @@ export async function runSalesPass(
   db: DbSession,
   cutoff: number | null,
   visitors: ReadonlyArray<Guarded<SeriesVisitor>>,
+  weekStart: (day: number) => number,
 ): Promise<SalesPassResult> {
   const totals = new DayAccumulator();
   let days = new Int32Array(4096);
@@ -113,7 +120,17 @@ export async function runSalesPass(
     const view = dense.subarray(0, len);
     view.fill(Number.NaN);
     for (let i = 0; i < n; i++) view[days[i]! - first] = units[i]!;
-    const s: SeriesView = { seriesId: current, firstDay: first, units: view, rows: n };
+    let sold: Int32Array | undefined;
+    const s: SeriesView = {
+      seriesId: current,
+      firstDay: first,
+      units: view,
+      rows: n,
+      soldWeeks: () => {
+        sold ??= soldWeekStarts(first, view, weekStart);
+        return sold;
+      },
+    };
     for (const v of visitors) v.call((x) => x.series(s));
   };
 

@@ -9,7 +9,6 @@ export class SharedPass<V, R> {
   private pending: number;
   private started = false;
   private readonly run: (visitors: ReadonlyArray<Guarded<V>>) => Promise<R>;
-  private readonly after: Promise<unknown>;
   private finished!: () => void;
   /** Settles (never rejects) once the pass is over, or known not to be needed. */
   readonly settled: Promise<void>;
@@ -17,16 +16,10 @@ export class SharedPass<V, R> {
   /**
    * @param expected how many checks declared this pass
    * @param run reads the table, calling each guarded visitor; returns the pass's own summary
-   * @param after a pass that must settle first (the sales pass waits for the prices pass)
    */
-  constructor(
-    expected: number,
-    run: (visitors: ReadonlyArray<Guarded<V>>) => Promise<R>,
-    after: Promise<unknown> = Promise.resolve(),
-  ) {
+  constructor(expected: number, run: (visitors: ReadonlyArray<Guarded<V>>) => Promise<R>) {
     this.pending = expected;
     this.run = run;
-    this.after = after;
     this.settled = new Promise((res) => {
       this.finished = res;
     });
@@ -53,10 +46,7 @@ export class SharedPass<V, R> {
   private maybeStart(): void {
     if (this.started || this.pending > 0) return;
     this.started = true;
-    void this.after
-      .catch(() => undefined)
-      .then(() => this.execute())
-      .finally(() => this.finished());
+    void this.execute().finally(() => this.finished());
   }
 
   private async execute(): Promise<void> {

@@ -1,5 +1,3 @@
-import type { SeriesView } from './sales-pass.js';
-
 /** Sold weeks of one series and how many of them have no price row. */
 export interface SoldWeeks {
   readonly sold: number;
@@ -10,37 +8,44 @@ export interface SoldWeeks {
 }
 
 /**
- * Walks a series' dense days by retail week (a week is sold when its units sum above zero) and
- * merges with the sorted week starts that carry a price. `weekStart` maps a day to its week's
- * first day.
+ * The retail weeks (their first days, ascending) in which a dense daily series sold: units summed
+ * over the week's stored days above zero. `weekStart` maps a day to its week's first day.
  */
-export function soldWeeks(
-  s: SeriesView,
-  priced: Int32Array | undefined,
+export function soldWeekStarts(
+  firstDay: number,
+  units: ArrayLike<number>,
   weekStart: (day: number) => number,
-): SoldWeeks {
-  const u = s.units;
-  let sold = 0;
+): Int32Array {
+  const last = firstDay + units.length - 1;
+  const first = weekStart(firstDay);
+  const out = new Int32Array(Math.floor((last - first) / 7) + 1);
+  let n = 0;
+  for (let w = first; w <= last; w += 7) {
+    let sum = 0;
+    const a = Math.max(w, firstDay) - firstDay;
+    const b = Math.min(w + 6, last) - firstDay;
+    for (let i = a; i <= b; i++) {
+      const v = units[i] as number;
+      if (!Number.isNaN(v)) sum += v;
+    }
+    if (sum > 0) out[n++] = w;
+  }
+  return out.slice(0, n);
+}
+
+/** Merges sold week starts with the sorted week starts that carry a price. */
+export function unpricedWeeks(sold: Int32Array, priced: Int32Array | undefined): SoldWeeks {
   let unpriced = 0;
   let firstUnpriced = -1;
   let lastUnpriced = -1;
   let p = 0;
-  const last = s.firstDay + u.length - 1;
-  for (let w = weekStart(s.firstDay); w <= last; w += 7) {
-    let sum = 0;
-    const a = Math.max(w, s.firstDay) - s.firstDay;
-    const b = Math.min(w + 6, last) - s.firstDay;
-    for (let i = a; i <= b; i++) {
-      const v = u[i]!;
-      if (!Number.isNaN(v)) sum += v;
-    }
-    if (!(sum > 0)) continue;
-    sold++;
+  for (let k = 0; k < sold.length; k++) {
+    const w = sold[k]!;
     if (priced) while (p < priced.length && priced[p]! < w) p++;
     if (priced && p < priced.length && priced[p] === w) continue;
     unpriced++;
     if (firstUnpriced < 0) firstUnpriced = w;
     lastUnpriced = w;
   }
-  return { sold, unpriced, firstUnpriced, lastUnpriced };
+  return { sold: sold.length, unpriced, firstUnpriced, lastUnpriced };
 }

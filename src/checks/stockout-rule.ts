@@ -44,7 +44,9 @@ export function zeroProbability(mu: number, s2: number): number {
   if (!(mu > 0)) return 1;
   if (s2 > mu) {
     const r = (mu * mu) / (s2 - mu);
-    return (r / (r + mu)) ** r;
+    // (r / (r + mu))^r = exp(-r ln(1 + mu / r)), written with log1p: when s2 is barely above mu,
+    // r is huge and the plain power loses every digit (it must tend to the Poisson e^-mu).
+    return Math.exp(-r * Math.log1p(mu / r));
   }
   return Math.exp(-mu);
 }

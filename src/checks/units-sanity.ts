@@ -2,7 +2,7 @@ import type { z } from 'zod';
 import { formatDay } from '../core/days.js';
 import { checkParams, defineCheck, intAtLeast, positiveNumber } from './check-definition.js';
 import type { FindingDraft } from './finding.js';
-import { MODIFIED_Z_FACTOR, medianAndMad } from './robust-stats.js';
+import { MODIFIED_Z_FACTOR, medianAndMad, medianInPlace } from './robust-stats.js';
 
 export const unitsSanityParams = checkParams(['negative-units', 'units-spike'], {
   /** Modified z-score above which a single day is a spike (issue 3: 10). */
@@ -134,6 +134,9 @@ export const unitsSanity = defineCheck({
           if (x <= mean - sd + limit) continue;
           let m = 0;
           for (let j = Math.max(0, d - w); j < d; j++) if (!Number.isNaN(u[j]!)) win[m++] = u[j]!;
+          // The median alone rules out most of the rest: a spike needs x - median > T x minScale.
+          scratch.set(win.subarray(0, m));
+          if (x - medianInPlace(scratch.subarray(0, m)) <= limit) continue;
           const score = spikeScore(x, win, m, p.minScale, scratch);
           if (!(score.z > p.spikeThreshold)) continue;
           drafts.push({

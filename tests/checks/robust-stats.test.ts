@@ -1,7 +1,13 @@
 import fc from 'fast-check';
 import * as ss from 'simple-statistics';
 import { describe, expect, test } from 'vitest';
-import { median, medianAbsoluteDeviation, medianAndMad, modifiedZ } from '../../src/checks/robust-stats.js';
+import {
+  median,
+  medianAbsoluteDeviation,
+  medianAndMad,
+  modifiedZ,
+  selectInPlace,
+} from '../../src/checks/robust-stats.js';
 
 describe('median and MAD against REFERENCES.md section 3', () => {
   test('3.2: x = 1..9 -> median 5, raw MAD 2', () => {
@@ -66,6 +72,26 @@ describe('against simple-statistics', () => {
         },
       ),
       { numRuns: 300 },
+    );
+  });
+
+  test('selection puts the k-th smallest value in place, with duplicates and ties', () => {
+    fc.assert(
+      fc.property(
+        fc.array(fc.integer({ min: -5, max: 5 }), { minLength: 1, maxLength: 40 }),
+        fc.nat(),
+        (x, k0) => {
+          const k = k0 % x.length;
+          const a = Float64Array.from(x);
+          const v = selectInPlace(a, k);
+          const sorted = [...x].sort((p, q) => p - q);
+          expect(v).toBe(sorted[k]);
+          for (let i = 0; i < k; i++) expect(a[i]).toBeLessThanOrEqual(v);
+          for (let i = k + 1; i < a.length; i++) expect(a[i]).toBeGreaterThanOrEqual(v);
+          expect([...a].sort((p, q) => p - q)).toEqual(sorted);
+        },
+      ),
+      { numRuns: 500 },
     );
   });
 

@@ -2,7 +2,7 @@ import { format, startOfWeek } from 'date-fns';
 import fc from 'fast-check';
 import { describe, expect, test } from 'vitest';
 import { retailWeekStart } from '../../src/checks/run-checks.js';
-import { soldWeeks } from '../../src/checks/sold-weeks.js';
+import { soldWeekStarts, unpricedWeeks } from '../../src/checks/sold-weeks.js';
 import { day, formatDay, toCivil } from '../../src/core/days.js';
 
 describe('retailWeekStart', () => {
@@ -24,26 +24,34 @@ describe('retailWeekStart', () => {
   });
 });
 
-describe('soldWeeks', () => {
+describe('sold weeks and their prices', () => {
   const sat = (d: number) => retailWeekStart(d, 6);
-  test('counts weeks with units and merges with priced week starts', () => {
+  test('weeks with units, merged with priced week starts', () => {
     const first = day('2024-01-06'); // a Saturday
     // Week 1 sold, week 2 all zero, week 3 sold but only a NaN and a 1, week 4 sold on its first day.
-    const u = [1, 0, 0, 0, 0, 0, 0, ...Array(7).fill(0), Number.NaN, 1, 0, 0, 0, 0, 0, 3];
-    const s = { seriesId: 1, firstDay: first, units: Float64Array.from(u), rows: u.length };
+    const u = Float64Array.from([1, 0, 0, 0, 0, 0, 0, ...Array(7).fill(0), Number.NaN, 1, 0, 0, 0, 0, 0, 3]);
+    const sold = soldWeekStarts(first, u, sat);
+    expect([...sold]).toEqual([first, first + 14, first + 21]);
     const priced = Int32Array.from([first, first + 7]);
-    expect(soldWeeks(s, priced, sat)).toEqual({
+    expect(unpricedWeeks(sold, priced)).toEqual({
       sold: 3,
       unpriced: 2,
       firstUnpriced: first + 14,
       lastUnpriced: first + 21,
     });
-    expect(soldWeeks(s, undefined, sat)).toMatchObject({ sold: 3, unpriced: 3 });
+    expect(unpricedWeeks(sold, undefined)).toMatchObject({ sold: 3, unpriced: 3 });
+    expect(unpricedWeeks(new Int32Array(0), priced)).toEqual({
+      sold: 0,
+      unpriced: 0,
+      firstUnpriced: -1,
+      lastUnpriced: -1,
+    });
   });
 
   test('a series starting mid-week belongs to the week that started before it', () => {
     const first = day('2024-01-10'); // Wednesday; its week starts Saturday 2024-01-06
-    const s = { seriesId: 1, firstDay: first, units: Float64Array.from([2]), rows: 1 };
-    expect(soldWeeks(s, Int32Array.from([day('2024-01-06')]), sat)).toMatchObject({ sold: 1, unpriced: 0 });
+    const sold = soldWeekStarts(first, Float64Array.from([2]), sat);
+    expect([...sold]).toEqual([day('2024-01-06')]);
+    expect(unpricedWeeks(sold, Int32Array.from([day('2024-01-06')]))).toMatchObject({ sold: 1, unpriced: 0 });
   });
 });

@@ -69,6 +69,12 @@ describe('zeroProbability: negative binomial by moments', () => {
     expect(zeroProbability(1, 5)).toBeCloseTo(0.6687403, 7);
   });
 
+  test('a variance barely above the mean tends to the Poisson value (no loss of digits)', () => {
+    // r = 0.04 / 4e-17 = 1e15: the plain power (r / (r + mu))^r would return garbage here.
+    expect(zeroProbability(0.2, 0.2 + 4e-17)).toBeCloseTo(Math.exp(-0.2), 12);
+    expect(zeroProbability(3, 3 + 1e-9)).toBeCloseTo(Math.exp(-3), 9);
+  });
+
   test('overdispersion raises the zero chance above Poisson', () => {
     expect(zeroProbability(2, 6)).toBeGreaterThan(zeroProbability(2, 2));
   });

@@ -45,7 +45,12 @@ beforeAll(async () => {
   );
   // P6 in store S2: 4 sold weeks, no price at all.
   await addSeries(db, 'P6', 'S2', '2024-01-06', rep(2, 28));
-  run = await runChecks(db, config, { only: ['price-spikes', 'price-coverage'] });
+  // The plain Iglewicz-Hoaglin rule (no MAD floor), so the worked example's values come out.
+  const plain = parseConfig(
+    { database: config.database, checks: { 'price-spikes': { minRelativeMad: 0 } } },
+    'test',
+  );
+  run = await runChecks(db, plain, { only: ['price-spikes', 'price-coverage'] });
 });
 
 describe('price-spikes', () => {
@@ -81,6 +86,14 @@ describe('price-spikes', () => {
     const p3 = run.findings.find((x) => x.code === 'price-spike' && x.itemId === 'P3')!;
     expect(p3.details).toMatchObject({ history_weeks: 1, mad: 0 });
     expect(p3.seriesId).toBeNull(); // prices without any sales
+  });
+
+  test('with the default MAD floor (10% of the median) the worked example keeps only 40', async () => {
+    const { db, config } = t();
+    const r = await runChecks(db, config, { only: ['price-spikes'] });
+    const p1 = r.findings.filter((f) => f.code === 'price-spike' && f.itemId === 'P1');
+    // Week 11: 0.6745 x 28 / max(1, 0.1 x 12) = 15.74; week 10: 0.6745 x 6 / 1.2 = 3.37 < 3.5.
+    expect(p1.map((f) => [f.weekStart, Number(f.observed!.toFixed(4))])).toEqual([['2024-03-16', 15.7383]]);
   });
 
   test('missing prices: first and last unpriced sold week', () => {
