@@ -112,7 +112,9 @@ export async function finishBuild(
     ]);
     if (plan.groupTable) await tx.exec(`DROP TABLE IF EXISTS ${quoteIdent(plan.groupTable)}`);
   });
-  await db.exec(`ANALYZE ${quoteIdent(plan.stagingTable)}`);
+  // Statistics of the key columns only: readers filter and join on them, and a sample of every
+  // feature column would cost more than the swap itself.
+  await db.exec(`ANALYZE ${quoteIdent(plan.stagingTable)} (series_id, day, origin, is_predict)`);
   await dropSuperseded(db, plan);
   const info = await getSnapshot(db, plan.set, plan.cutoff);
   if (!info)

@@ -31,6 +31,151 @@ export interface WindowSpec {
 const EXACT = 2 ** 53;
 
 /**
+ * The running state of one window over a padded array `x` (index j = day - origin): counts and
+ * exact sums, monotonic deques of indices for min and max, and the two-stack queue of the
+ * weighted mean. `counted[j]` records what was added, so removal undoes exactly that.
+ */
+class WindowState {
+  n = 0;
+  sum = 0;
+  sumSq = 0;
+  zeros = 0;
+  minH = 0;
+  minL = 0;
+  maxH = 0;
+  maxL = 0;
+  // Two-stack queue: front [fStart, fEnd] with suffix sums relative to fEnd; back (fEnd, last].
+  fStart = 0;
+  fEnd = -1;
+  bStart = 0;
+  bEnd = -1;
+  bA = 0;
+  bB = 0;
+  readonly minQ: Int32Array;
+  readonly maxQ: Int32Array;
+  readonly fA: Float64Array;
+  readonly fB: Float64Array;
+  readonly counted: Uint8Array;
+
+  constructor(
+    readonly x: Float64Array,
+    readonly w: number,
+    readonly lambda: number,
+    readonly pw: Float64Array,
+    readonly wantMin: boolean,
+    readonly wantMax: boolean,
+    readonly wantEwm: boolean,
+  ) {
+    this.minQ = new Int32Array(w);
+    this.maxQ = new Int32Array(w);
+    this.fA = new Float64Array(x.length);
+    this.fB = new Float64Array(x.length);
+    this.counted = new Uint8Array(x.length);
+  }
+
+  reset(): void {
+    this.n = this.sum = this.sumSq = this.zeros = 0;
+    this.minH = this.minL = this.maxH = this.maxL = 0;
+    this.fStart = 0;
+    this.fEnd = -1;
+    this.bStart = 0;
+    this.bEnd = -1;
+    this.bA = this.bB = 0;
+  }
+
+  /** Appends day j; it counts when `visible` (a value that the mask does not hide). */
+  add(j: number, visible: boolean): void {
+    const v = this.x[j]!;
+    const valid = visible && v === v;
+    this.counted[j] = valid ? 1 : 0;
+    const w = this.w;
+    if (valid) {
+      this.n++;
+      this.sum += v;
+      this.sumSq += v * v;
+      if (v === 0) this.zeros++;
+      if (this.wantMin) {
+        const q = this.minQ;
+        while (this.minL > 0 && this.x[q[(this.minH + this.minL - 1) % w]!]! >= v) this.minL--;
+        q[(this.minH + this.minL) % w] = j;
+        this.minL++;
+      }
+      if (this.wantMax) {
+        const q = this.maxQ;
+        while (this.maxL > 0 && this.x[q[(this.maxH + this.maxL - 1) % w]!]! <= v) this.maxL--;
+        q[(this.maxH + this.maxL) % w] = j;
+        this.maxL++;
+      }
+    }
+    if (this.wantEwm) {
+      const y = valid ? v : 0;
+      const b = valid ? 1 : 0;
+      if (this.bEnd < this.bStart) {
+        this.bStart = j;
+        this.bA = y;
+        this.bB = b;
+      } else {
+        this.bA = this.bA * this.lambda + y;
+        this.bB = this.bB * this.lambda + b;
+      }
+      this.bEnd = j;
+    }
+  }
+
+  /** Drops day j, the oldest of the window. */
+  remove(j: number): void {
+    if (this.counted[j] === 1) {
+      const v = this.x[j]!;
+      this.n--;
+      this.sum -= v;
+      this.sumSq -= v * v;
+      if (v === 0) this.zeros--;
+      if (this.minL > 0 && this.minQ[this.minH] === j) {
+        this.minH = (this.minH + 1) % this.w;
+        this.minL--;
+      }
+      if (this.maxL > 0 && this.maxQ[this.maxH] === j) {
+        this.maxH = (this.maxH + 1) % this.w;
+        this.maxL--;
+      }
+    }
+    if (this.wantEwm) {
+      if (this.fEnd < this.fStart) {
+        // Front empty: move the back segment over, with suffix sums relative to its last day.
+        let a = 0;
+        let b = 0;
+        for (let k = this.bEnd; k >= this.bStart; k--) {
+          if (this.counted[k] === 1) {
+            const f = this.pw[this.bEnd - k]!;
+            a += this.x[k]! * f;
+            b += f;
+          }
+          this.fA[k] = a;
+          this.fB[k] = b;
+        }
+        this.fStart = this.bStart;
+        this.fEnd = this.bEnd;
+        this.bStart = this.bEnd + 1;
+        this.bEnd = this.bStart - 1;
+        this.bA = this.bB = 0;
+      }
+      this.fStart++;
+    }
+  }
+
+  ewm(j: number): number {
+    let a = this.bEnd >= this.bStart ? this.bA : 0;
+    let b = this.bEnd >= this.bStart ? this.bB : 0;
+    if (this.fEnd >= this.fStart) {
+      const f = this.pw[j - this.fEnd]!;
+      a += this.fA[this.fStart]! * f;
+      b += this.fB[this.fStart]! * f;
+    }
+    return b > 0 ? a / b : Number.NaN;
+  }
+}
+
+/**
  * Statistics of the windows [e - size + 1, e] for every end e in [eLo, eHi]; `out[k][e - eLo]`
  * is `spec.stats[k]` (NaN when fewer than `minDays` valid days, std also when fewer than 2).
  */
@@ -42,188 +187,71 @@ export function windowStats(
   out: Float64Array[],
 ): void {
   const { base, values, maskFrom, maskEvents } = input;
-  const len = values.length;
   const w = spec.size;
+  // A padded copy over [eLo - w + 1, eHi]: no bounds checks inside the loop.
+  const origin = eLo - w + 1;
+  const span = eHi - origin + 1;
+  const x = new Float64Array(span).fill(Number.NaN);
+  const mf = maskFrom ? new Int32Array(span).fill(2147483647) : null;
+  const lo = Math.max(0, base - origin);
+  const hi = Math.min(span, base + values.length - origin);
+  for (let j = lo; j < hi; j++) {
+    x[j] = values[j + origin - base]!;
+    if (mf) mf[j] = maskFrom![j + origin - base]!;
+  }
   const lambda = 1 - spec.alpha;
   const pw = new Float64Array(w + 1);
   for (let k = 0; k <= w; k++) pw[k] = lambda ** k;
-  const want = statFlags(spec.stats);
-
-  let n = 0;
-  let sum = 0;
-  let sumSq = 0;
-  let zeros = 0;
-  // Deques of day numbers (ring buffers of capacity w).
-  const minQ = new Int32Array(w);
-  const maxQ = new Int32Array(w);
-  let minH = 0;
-  let minL = 0;
-  let maxH = 0;
-  let maxL = 0;
-  // Two-stack queue for the weighted mean: front segment [fStart, fEnd] with suffix sums
-  // relative to fEnd, back segment (fEnd, e] as running sums relative to its last day.
-  const ring = new Float64Array(w);
-  const fA = new Float64Array(w);
-  const fB = new Float64Array(w);
-  let fStart = 0;
-  let fEnd = -1;
-  let bA = 0;
-  let bB = 0;
-  let bStart = 0;
-  let bEnd = -1;
-
-  const valueAt = (d: number, end: number): number => {
-    const i = d - base;
-    if (i < 0 || i >= len) return Number.NaN;
-    if (maskFrom !== null && maskFrom[i]! <= end) return Number.NaN;
-    return values[i]!;
-  };
-  const slot = (d: number) => ((d % w) + w) % w;
-
-  const push = (d: number, v: number) => {
-    const valid = !Number.isNaN(v);
-    if (valid) {
-      n++;
-      sum += v;
-      sumSq += v * v;
-      if (v === 0) zeros++;
-      if (want.min) {
-        while (minL > 0 && ring[slot(minQ[(minH + minL - 1) % w]!)]! >= v) minL--;
-        minQ[(minH + minL) % w] = d;
-        minL++;
-      }
-      if (want.max) {
-        while (maxL > 0 && ring[slot(maxQ[(maxH + maxL - 1) % w]!)]! <= v) maxL--;
-        maxQ[(maxH + maxL) % w] = d;
-        maxL++;
-      }
-    }
-    ring[slot(d)] = v;
-    if (want.ewm) {
-      const y = valid ? v : 0;
-      const b = valid ? 1 : 0;
-      if (bEnd < bStart) {
-        bStart = d;
-        bA = y;
-        bB = b;
-      } else {
-        bA = bA * lambda + y;
-        bB = bB * lambda + b;
-      }
-      bEnd = d;
-    }
-  };
-
-  const pop = (d: number) => {
-    const v = ring[slot(d)]!;
-    if (!Number.isNaN(v)) {
-      n--;
-      sum -= v;
-      sumSq -= v * v;
-      if (v === 0) zeros--;
-      if (want.min && minL > 0 && minQ[minH] === d) {
-        minH = (minH + 1) % w;
-        minL--;
-      }
-      if (want.max && maxL > 0 && maxQ[maxH] === d) {
-        maxH = (maxH + 1) % w;
-        maxL--;
-      }
-    }
-    if (want.ewm) {
-      if (fEnd < fStart) {
-        // Front empty: move the back segment over, with suffix sums relative to its last day.
-        let a = 0;
-        let b = 0;
-        for (let x = bEnd; x >= bStart; x--) {
-          const y = ring[slot(x)]!;
-          const k = bEnd - x;
-          if (!Number.isNaN(y)) {
-            a += y * pw[k]!;
-            b += pw[k]!;
-          }
-          fA[slot(x)] = a;
-          fB[slot(x)] = b;
-        }
-        fStart = bStart;
-        fEnd = bEnd;
-        bStart = bEnd + 1;
-        bEnd = bStart - 1;
-        bA = 0;
-        bB = 0;
-      }
-      fStart++;
-    }
-  };
-
-  const reset = (end: number) => {
-    n = 0;
-    sum = 0;
-    sumSq = 0;
-    zeros = 0;
-    minH = minL = maxH = maxL = 0;
-    fStart = 0;
-    fEnd = -1;
-    bStart = 0;
-    bEnd = -1;
-    bA = bB = 0;
-    for (let d = end - w + 1; d <= end; d++) push(d, valueAt(d, end));
-  };
-
+  const idx = (s: WindowStat) => spec.stats.indexOf(s);
+  const [kMean, kStd, kMin, kMax, kZero, kEwm] = (['mean', 'std', 'min', 'max', 'zero_share', 'ewm'] as const).map(idx) as [
+    number,
+    number,
+    number,
+    number,
+    number,
+    number,
+  ];
+  const st = new WindowState(x, w, lambda, pw, kMin >= 0, kMax >= 0, kEwm >= 0);
+  const minDays = Math.max(1, spec.minDays);
   let ev = 0;
-  const events = maskEvents;
   for (let e = eLo; e <= eHi; e++) {
+    const J = e - origin;
     let rebuild = e === eLo;
-    if (events !== null) {
-      while (ev < events.length && events[ev]! < e) ev++;
-      if (ev < events.length && events[ev] === e) rebuild = true;
+    if (maskEvents !== null) {
+      while (ev < maskEvents.length && maskEvents[ev]! < e) ev++;
+      if (ev < maskEvents.length && maskEvents[ev] === e) rebuild = true;
     }
-    if (rebuild) reset(e);
-    else {
-      pop(e - w);
-      push(e, valueAt(e, e));
+    if (rebuild) {
+      st.reset();
+      for (let j = J - w + 1; j <= J; j++) st.add(j, mf === null || mf[j]! > e);
+    } else {
+      st.remove(J - w);
+      st.add(J, mf === null || mf[J]! > e);
     }
-    const j = e - eLo;
-    const ok = n >= spec.minDays && n > 0;
-    for (let k = 0; k < spec.stats.length; k++) {
-      const col = out[k]!;
-      if (!ok) {
-        col[j] = Number.NaN;
-        continue;
-      }
-      switch (spec.stats[k]!) {
-        case 'mean':
-          col[j] = sum / n;
-          break;
-        case 'std':
-          col[j] = n < 2 ? Number.NaN : sampleStd(n, sum, sumSq, ring, w, e);
-          break;
-        case 'min':
-          col[j] = ring[slot(minQ[minH]!)]!;
-          break;
-        case 'max':
-          col[j] = ring[slot(maxQ[maxH]!)]!;
-          break;
-        case 'zero_share':
-          col[j] = zeros / n;
-          break;
-        case 'ewm': {
-          let a = bEnd >= bStart ? bA : 0;
-          let b = bEnd >= bStart ? bB : 0;
-          if (fEnd >= fStart) {
-            const f = pw[e - fEnd]!;
-            a += fA[slot(fStart)]! * f;
-            b += fB[slot(fStart)]! * f;
-          }
-          col[j] = b > 0 ? a / b : Number.NaN;
-          break;
-        }
-      }
+    const o = e - eLo;
+    const n = st.n;
+    if (n < minDays) {
+      for (let k = 0; k < out.length; k++) out[k]![o] = Number.NaN;
+      continue;
     }
+    if (kMean >= 0) out[kMean]![o] = st.sum / n;
+    if (kStd >= 0) out[kStd]![o] = n < 2 ? Number.NaN : sampleStd(n, st.sum, st.sumSq, x, st.counted, J - w + 1, J);
+    if (kMin >= 0) out[kMin]![o] = x[st.minQ[st.minH]!]!;
+    if (kMax >= 0) out[kMax]![o] = x[st.maxQ[st.maxH]!]!;
+    if (kZero >= 0) out[kZero]![o] = st.zeros / n;
+    if (kEwm >= 0) out[kEwm]![o] = st.ewm(J);
   }
 }
 
-function sampleStd(n: number, sum: number, sumSq: number, ring: Float64Array, w: number, e: number): number {
+function sampleStd(
+  n: number,
+  sum: number,
+  sumSq: number,
+  x: Float64Array,
+  counted: Uint8Array,
+  from: number,
+  to: number,
+): number {
   const a = n * sumSq;
   if (a < EXACT && sum * sum < EXACT) {
     const v = (a - sum * sum) / (n * (n - 1));
@@ -232,15 +260,8 @@ function sampleStd(n: number, sum: number, sumSq: number, ring: Float64Array, w:
   // Large totals (chain-level sums): two passes over the window.
   const mean = sum / n;
   let ss = 0;
-  for (let d = e - w + 1; d <= e; d++) {
-    const v = ring[((d % w) + w) % w]!;
-    if (!Number.isNaN(v)) ss += (v - mean) * (v - mean);
-  }
+  for (let j = from; j <= to; j++) if (counted[j] === 1) ss += (x[j]! - mean) * (x[j]! - mean);
   return Math.sqrt(ss / (n - 1));
-}
-
-function statFlags(stats: readonly WindowStat[]) {
-  return { min: stats.includes('min'), max: stats.includes('max'), ewm: stats.includes('ewm') };
 }
 
 /** The usual smoothing factor for a window of `size` days: 2 / (size + 1) (common practice). */
