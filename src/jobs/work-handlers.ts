@@ -1,5 +1,6 @@
 import type { BuildPlan } from '../build/build-plan.js';
 import { buildPartition } from '../build/build-partition.js';
+import { type RefreshPlan, refreshPartition } from './incremental-refresh.js';
 import type { WorkHandler } from './worker.js';
 
 /** Item kind of one partition of a snapshot build; the job payload is the build plan. */
@@ -18,7 +19,19 @@ export const buildPartitionHandler: WorkHandler = {
   },
 };
 
+/** Item kind of one partition of an incremental refresh; the payload is the refresh plan. */
+export const REFRESH_PARTITION = 'refresh-partition';
+
+/** Computes the rows a new day changes for one partition (see incremental-refresh.ts). */
+export const refreshPartitionHandler: WorkHandler = {
+  kind: REFRESH_PARTITION,
+  async run({ db, item }) {
+    return { rows: await refreshPartition(db, item.payload as RefreshPlan, item.partition) };
+  },
+};
+
 /** The kinds of work `larder worker` and the runner's own claim loops do. */
 export const WORK_HANDLERS: ReadonlyMap<string, WorkHandler> = new Map([
   [buildPartitionHandler.kind, buildPartitionHandler],
+  [refreshPartitionHandler.kind, refreshPartitionHandler],
 ]);

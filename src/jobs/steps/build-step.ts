@@ -5,7 +5,16 @@ import { LarderError } from '../../db/errors.js';
 import type { WorkKit } from '../partitioned-job.js';
 import { runPartitioned } from '../partitioned-job.js';
 import type { PipelineStep, StepEnv, StepResult } from '../pipeline-step.js';
-import { BUILD_PARTITION } from '../work-handlers.js';
+import {
+  abortRefresh,
+  canRefresh,
+  checkRefresh,
+  createRefreshPlan,
+  finishRefresh,
+  type RefreshBasis,
+  type RefreshPlan,
+} from '../incremental-refresh.js';
+import { BUILD_PARTITION, REFRESH_PARTITION } from '../work-handlers.js';
 
 /** A plan stored with an earlier attempt can be finished only if nothing was loaded since. */
 async function stillValid(env: StepEnv, plan: BuildPlan): Promise<boolean> {
@@ -73,7 +82,78 @@ export async function fullBuild(env: StepEnv, kit: WorkKit): Promise<StepResult>
   }
 }
 
-/** The build step: skips a snapshot already built from the same inputs, else builds. */
+/**
+ * The incremental path: only the rows a new day can change are computed, by partition through the
+ * work queue, then the previous snapshot is advanced in place (incremental-refresh.ts).
+ */
+async function refresh(env: StepEnv, kit: WorkKit, basis: RefreshBasis): Promise<StepResult> {
+  const set = env.set!;
+  const inputs = env.state.plans.get(set)!.inputs;
+  const t0 = performance.now();
+  const run = await runPartitioned(env, kit, {
+    kind: REFRESH_PARTITION,
+    jobKey: `refresh:${set}:${env.cutoff}:${inputs.definitionHash}:${inputs.dataFingerprint}:${basis.previousSnapshotId}`,
+    label: `refresh ${set}`,
+    async reuse(p) {
+      const plan = p as RefreshPlan;
+      return (
+        (
+          await env.db.query<{ ok: boolean }>('SELECT to_regclass($1) IS NOT NULL AS ok', [
+            plan.build.stagingTable,
+          ])
+        ).rows[0]!.ok && (await stillLoaded(env, plan.build))
+      );
+    },
+    async create() {
+      const plan = await createRefreshPlan(env.db, env.config, basis);
+      return { payload: plan, partitions: plan.build.partitions };
+    },
+  });
+  const plan = run.payload as RefreshPlan;
+  try {
+    const r = await finishRefresh(env.db, plan, {
+      runId: env.run.runId,
+      jobId: run.jobId,
+      partitionsMs: Math.round(performance.now() - t0),
+    });
+    return {
+      status: 'succeeded',
+      rows: r.rowCount,
+      details: {
+        mode: 'incremental',
+        from: plan.previousCutoff,
+        snapshotId: r.snapshotId,
+        table: r.table,
+        computedRows: r.computedRows,
+        droppedRows: r.droppedRows,
+        partitions: run.progress.total,
+      },
+      message:
+        `snapshot ${r.snapshotId} refreshed from ${plan.previousCutoff}: ${r.computedRows} rows computed, ` +
+        `${r.droppedRows} dropped, ${r.rowCount - r.computedRows} reused`,
+    };
+  } catch (err) {
+    if (err instanceof LarderError && (err.code === 'DATA_CHANGED' || err.code === 'BUILD_GONE')) {
+      await abortRefresh(env.db, plan).catch(() => {});
+    }
+    throw err;
+  }
+}
+
+async function stillLoaded(env: StepEnv, plan: BuildPlan): Promise<boolean> {
+  const r = await env.db.query<{ n: number; last: number }>(
+    `SELECT (SELECT count(*) FROM load_batches)::int8 AS n, (SELECT coalesce(max(batch_id), 0) FROM load_batches)::int8 AS last`,
+  );
+  return (
+    Number(r.rows[0]!.n) === plan.loadMark.batches && Number(r.rows[0]!.last) === plan.loadMark.lastBatch
+  );
+}
+
+/**
+ * The build step: skips a snapshot already built from the same inputs; refreshes incrementally
+ * from the previous cutoff's snapshot when its definition and older data are unchanged
+ * (`pipeline.incremental`, not with --force); else builds in full.
+ */
 export function buildStep(kit: WorkKit): PipelineStep {
   return {
     name: 'build',
@@ -95,6 +175,11 @@ export function buildStep(kit: WorkKit): PipelineStep {
           details: { mode: 'existing', snapshotId: snap.snapshotId, table: snap.tableName },
           message: `snapshot ${snap.snapshotId} was already built from these inputs`,
         };
+      }
+      if (env.config.pipeline.incremental && !env.settings.force) {
+        const basis = await checkRefresh(env.db, env.config, set, env.cutoff, inputs);
+        if (canRefresh(basis)) return refresh(env, kit, basis);
+        env.reporter.info(`build ${set}: full build (${basis.reason})`, { set, reason: basis.reason });
       }
       return fullBuild(env, kit);
     },

@@ -3,8 +3,9 @@ import type { DbSession } from '../../../src/db/database.js';
 
 /**
  * A small invented chain written straight into the raw tables, clean enough that no check
- * blocks: units are a deterministic hash of (series, day) in 0..6, prices change every few
- * weeks by a few percent, the calendar covers the history and the horizon.
+ * blocks: units are a deterministic hash of (series, day) in 1..6 (with zeros, a chain this
+ * small shows natural 50% volume drops), prices change every few weeks by a few percent, the
+ * calendar covers the history and the horizon.
  */
 export interface ChainShape {
   readonly stores: number;
@@ -15,7 +16,7 @@ export interface ChainShape {
 }
 
 const UNITS = (series: string, day: string) =>
-  `(abs(hashint8extended(${series}::int8 * 100003 + (${day} - DATE '2000-01-01'), 7)) % 7)::int4`;
+  `(1 + abs(hashint8extended(${series}::int8 * 100003 + (${day} - DATE '2000-01-01'), 7)) % 6)::int4`;
 
 export async function seedChain(db: DbSession, c: ChainShape): Promise<void> {
   await db.query(
@@ -64,7 +65,12 @@ export async function addSalesDays(db: DbSession, from: string, n: number): Prom
 }
 
 /** Writes one day of sales for every series as a long-layout CSV the loader reads. */
-export async function writeSalesCsv(db: DbSession, day: string, path: string): Promise<number> {
+export async function writeSalesCsv(
+  db: DbSession,
+  day: string,
+  path: string,
+  override: (item: string, store: string) => number | undefined = () => undefined,
+): Promise<number> {
   const rows = (
     await db.query<{ item_id: string; store_id: string; units: number }>(
       `SELECT item_id, store_id, ${UNITS('series_id', '$1::date')} AS units FROM series ORDER BY series_id`,
@@ -73,7 +79,7 @@ export async function writeSalesCsv(db: DbSession, day: string, path: string): P
   ).rows;
   writeFileSync(
     path,
-    `item_id,store_id,day,units\n${rows.map((r) => `${r.item_id},${r.store_id},${day},${r.units}`).join('\n')}\n`,
+    `item_id,store_id,day,units\n${rows.map((r) => `${r.item_id},${r.store_id},${day},${override(r.item_id, r.store_id) ?? r.units}`).join('\n')}\n`,
   );
   return rows.length;
 }

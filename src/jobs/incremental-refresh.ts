@@ -1,0 +1,426 @@
+import { randomBytes } from 'node:crypto';
+import { type BuildPlan, buildWindow, planFeatureSet, snapshotTableDdl } from '../build/build-plan.js';
+import { readPartition } from '../build/build-partition.js';
+import { computeSeriesFeatures } from '../build/compute-series.js';
+import { dataFingerprint } from '../build/fingerprint.js';
+import { stageGroupStatements } from '../build/group-stage.js';
+import { seriesRows } from '../build/series-rows.js';
+import type { Config } from '../config/config.js';
+import { formatDay, parseDay } from '../core/days.js';
+import { CopyBinaryWriter } from '../db/binary-copy.js';
+import { type Db, type DbSession, quoteIdent, safeIdent } from '../db/database.js';
+import { LarderError } from '../db/errors.js';
+import { calendarCodes } from '../features/calendar.js';
+import type { SeriesInput } from '../features/family.js';
+import { resolveFeatureSet } from '../features/feature-set.js';
+import { stockoutMask } from '../features/stockout-mask.js';
+
+/**
+ * Incremental refresh of a shift-mode snapshot from cutoff P to a later cutoff C.
+ *
+ * Why it is exact: in shift mode a sales cell of row t has the boundary min(C, t - g), and every
+ * shift g is at least the horizon H >= 1 (the build refuses less), so for a row t <= P the
+ * boundary is t - g < P under either cutoff: the cell reads the same days. Prices of such a row
+ * come from weeks starting on or before t <= P, inside both price boundaries; calendar values do
+ * not depend on the cutoff; group values aggregate under the same boundary; the stock-out mask
+ * hides a day only from boundaries on or after the day its run became detectable, from data up
+ * to that boundary. So when the definition is the same and the data inside P's boundaries is
+ * unchanged (P's data fingerprint recomputed on today's tables), every training row t <= P of
+ * the new snapshot equals P's row, and only rows t > P are computed: the days P+1 .. C that
+ * became training rows and the new prediction rows C+1 .. C+H. Training rows before the new
+ * first training day are dropped. The tests compare the result with a full rebuild cell for cell.
+ *
+ * The previous snapshot's table is advanced in place (one transaction: delete, insert, move the
+ * catalogue row to C), because copying the unchanged rows would cost as much as the full build's
+ * write-back. The refreshed table is therefore not stored in (series_id, day) order: its readers
+ * order what they read (export falls back to a sorted read).
+ */
+export interface RefreshPlan {
+  readonly version: 1;
+  readonly set: string;
+  readonly cutoff: string;
+  readonly previousCutoff: string;
+  readonly previousSnapshotId: number;
+  readonly previousTable: string;
+  /** The new snapshot's first training day. */
+  readonly trainFrom: string;
+  readonly dataFingerprint: string;
+  readonly fingerprintParts: BuildPlan['fingerprintParts'];
+  /** A build plan over the anchor days P+1 .. C+H only; its staging table receives the new rows. */
+  readonly build: BuildPlan;
+}
+
+/** Why a set is rebuilt in full instead (for the run's record). */
+export interface NoRefresh {
+  readonly reason: string;
+}
+
+interface PrevRow {
+  snapshot_id: number;
+  cutoff: string;
+  definition_hash: string;
+  data_fingerprint: string;
+  table_name: string;
+  train_from: string;
+  exists: boolean;
+}
+
+/**
+ * Plans a refresh of `set` to `cutoff` from its newest earlier snapshot, or says why it cannot:
+ * another definition, origin mode, too many days apart, older data changed. `inputs` are the
+ * run's definition hash and data fingerprint for the new cutoff.
+ */
+/** What a refresh starts from, once `checkRefresh` found one possible (no tables made yet). */
+export interface RefreshBasis {
+  readonly setName: string;
+  readonly cutoff: string;
+  readonly previousCutoff: string;
+  readonly previousSnapshotId: number;
+  readonly previousTable: string;
+  readonly trainFrom: string;
+  readonly dataFingerprint: string;
+  readonly fingerprintParts: BuildPlan['fingerprintParts'];
+}
+
+export async function checkRefresh(
+  db: Db,
+  config: Config,
+  setName: string,
+  cutoff: string,
+  inputs: { definitionHash: string; dataFingerprint: string },
+): Promise<RefreshBasis | NoRefresh> {
+  const set = resolveFeatureSet(config, setName);
+  const def = set.definition;
+  if (def.mode !== 'shift') return { reason: 'origin mode is always built in full' };
+  if (set.definitionHash !== inputs.definitionHash)
+    return { reason: 'the definition changed during the run' };
+  const C = parseDay(cutoff)!;
+  const prev = (
+    await db.query<PrevRow>(
+      `SELECT snapshot_id, cutoff, definition_hash, data_fingerprint, table_name, train_from,
+         to_regclass(quote_ident(table_name)) IS NOT NULL AS exists
+       FROM snapshots WHERE set_name = $1 AND cutoff < $2 ORDER BY cutoff DESC LIMIT 1`,
+      [setName, cutoff],
+    )
+  ).rows[0];
+  if (!prev) return { reason: 'no earlier snapshot of the set' };
+  const P = parseDay(prev.cutoff)!;
+  if (prev.definition_hash !== set.definitionHash)
+    return { reason: `the snapshot of ${prev.cutoff} has another definition` };
+  if (!prev.exists) return { reason: `the table of the snapshot of ${prev.cutoff} is missing` };
+  const H = def.horizon;
+  if (C - P > H)
+    return { reason: `${C - P} days since the snapshot of ${prev.cutoff}, more than the horizon (${H})` };
+  const from =
+    def.training.from !== undefined ? parseDay(def.training.from)! : C - (def.training.days ?? 730) + 1;
+  if (from < parseDay(prev.train_from)!)
+    return { reason: 'the training span starts earlier than the previous one' };
+  if (from > P) return { reason: 'no training row of the previous snapshot is kept' };
+  // The previous snapshot's own fingerprint, recomputed on today's tables: equal means nothing it
+  // read has changed (corrections, late rows, hierarchy or calendar edits all show here).
+  const prevWindow = buildWindow(set, P, P);
+  const again = await dataFingerprint((fn) => db.session(fn), P, prevWindow.priceBoundary);
+  if (again.fingerprint !== prev.data_fingerprint) {
+    return {
+      reason: `data inside the boundaries of the snapshot of ${prev.cutoff} changed since it was built`,
+    };
+  }
+
+  const current = await dataFingerprint((fn) => db.session(fn), C, buildWindow(set, C, P + 1).priceBoundary);
+  if (current.fingerprint !== inputs.dataFingerprint) {
+    throw new LarderError('DATA_CHANGED', `the data of ${setName} changed after the run started: run again`);
+  }
+  return {
+    setName,
+    cutoff,
+    previousCutoff: prev.cutoff,
+    previousSnapshotId: Number(prev.snapshot_id),
+    previousTable: prev.table_name,
+    trainFrom: formatDay(from),
+    dataFingerprint: current.fingerprint,
+    fingerprintParts: current.parts,
+  };
+}
+
+/** Makes the refresh's tables (new rows, staged group totals) and its plan for the workers. */
+export async function createRefreshPlan(db: Db, config: Config, basis: RefreshBasis): Promise<RefreshPlan> {
+  const set = resolveFeatureSet(config, basis.setName);
+  const def = set.definition;
+  const C = parseDay(basis.cutoff)!;
+  const P = parseDay(basis.previousCutoff)!;
+  const cutoff = basis.cutoff;
+  const setName = basis.setName;
+  const w = buildWindow(set, C, P + 1);
+  const rnd = randomBytes(6).toString('hex').slice(0, 8);
+  const delta = safeIdent(
+    `refresh_${setName.slice(0, 36)}_${formatDay(C).replaceAll('-', '')}_${rnd}`,
+    'refresh table',
+  );
+  const groupTable = w.chain.length ? `${delta}_g` : null;
+  const partitions = (
+    await db.query<{ store_id: string }>('SELECT DISTINCT store_id FROM series ORDER BY store_id')
+  ).rows.map((r) => r.store_id);
+  const events = (
+    await db.query<{ day: string; name: string; kind: string }>('SELECT day, name, kind FROM events')
+  ).rows;
+  const mark = (
+    await db.query<{ n: number; last: number }>(
+      'SELECT count(*)::int8 AS n, coalesce(max(batch_id), 0)::int8 AS last FROM load_batches',
+    )
+  ).rows[0]!;
+  await db.exec(snapshotTableDdl(delta, set));
+  if (groupTable) {
+    await db.session(async (s) => {
+      for (const sql of stageGroupStatements(groupTable, w.chain, w.groupFrom, C)) await s.exec(sql);
+    });
+  }
+  const build: BuildPlan = {
+    version: 1,
+    set: set.name,
+    cutoff,
+    from: formatDay(P + 1),
+    definitionHash: set.definitionHash,
+    definition: def,
+    weekStartsOn: config.calendar.weekStartsOn,
+    unsafe: set.unsafe,
+    dataFingerprint: basis.dataFingerprint,
+    fingerprintParts: basis.fingerprintParts,
+    partitions,
+    stagingTable: delta,
+    groupTable,
+    chainLevels: w.chain,
+    storeLevels: w.store,
+    salesFrom: w.salesFrom === null ? null : formatDay(w.salesFrom),
+    groupFrom: formatDay(w.groupFrom),
+    priceBoundary: formatDay(w.priceBoundary),
+    anchorLo: formatDay(w.anchorLo),
+    anchorHi: formatDay(w.anchorHi),
+    codes: calendarCodes(events.map((e) => ({ day: parseDay(e.day)!, name: e.name, kind: e.kind }))),
+    loadMark: { batches: Number(mark.n), lastBatch: Number(mark.last) },
+    plannedAt: new Date().toISOString(),
+    timings: {},
+  };
+  return {
+    version: 1,
+    set: set.name,
+    cutoff,
+    previousCutoff: basis.previousCutoff,
+    previousSnapshotId: basis.previousSnapshotId,
+    previousTable: basis.previousTable,
+    trainFrom: basis.trainFrom,
+    dataFingerprint: basis.dataFingerprint,
+    fingerprintParts: basis.fingerprintParts,
+    build,
+  };
+}
+
+export const canRefresh = (p: RefreshBasis | NoRefresh): p is RefreshBasis => 'previousTable' in p;
+
+/**
+ * Computes one partition's new rows (anchor days P+1 .. C+H) into the refresh table, replacing
+ * what an earlier attempt at the same partition left there (idempotent).
+ */
+export async function refreshPartition(db: Db, plan: RefreshPlan, store: string): Promise<number> {
+  const b = plan.build;
+  const set = planFeatureSet(b);
+  if (set.definitionHash !== b.definitionHash) {
+    throw new LarderError(
+      'PLAN_MISMATCH',
+      `the feature code gives definition hash ${set.definitionHash}, the plan ${b.definitionHash}`,
+    );
+  }
+  const table = quoteIdent(b.stagingTable);
+  return db.transaction(async (tx) => {
+    await tx.query('SELECT pg_advisory_xact_lock(hashtextextended($1, 0))', [
+      `larder.refresh:${b.stagingTable}:${store}`,
+    ]);
+    if (
+      !(await tx.query<{ ok: boolean }>('SELECT to_regclass($1) IS NOT NULL AS ok', [b.stagingTable]))
+        .rows[0]!.ok
+    ) {
+      throw new LarderError('BUILD_GONE', `refresh table ${b.stagingTable} is gone`);
+    }
+    await tx.query(
+      `DELETE FROM ${table} WHERE series_id IN (SELECT series_id FROM series WHERE store_id = $1)`,
+      [store],
+    );
+    const data = await readPartition(tx, b, set, store);
+    const C = parseDay(b.cutoff)!;
+    const layout = {
+      mode: 'shift' as const,
+      cutoff: C,
+      horizon: set.shape.horizon,
+      from: parseDay(b.from)!,
+      origins: new Int32Array(0),
+    };
+    const F = set.columns.length;
+    let rows = 0;
+    async function* chunks(): AsyncGenerator<Uint8Array> {
+      const w = new CopyBinaryWriter();
+      for (const x of data.series) {
+        const r = seriesRows(layout, data.base, x.units);
+        const mask = set.stockout ? stockoutMask(data.base, x.units, C, set.stockout) : null;
+        const input: SeriesInput = {
+          seriesId: x.seriesId,
+          cutoff: C,
+          base: data.base,
+          units: x.units,
+          maskFrom: mask?.maskFrom ?? null,
+          maskEvents: mask?.events ?? null,
+          rows: r,
+          keys: x.keys,
+          itemId: x.hierarchy.itemId,
+        };
+        const cols = computeSeriesFeatures(set, input, data.env);
+        for (let i = 0; i < r.n; i++) {
+          w.row(5 + F);
+          w.int4(x.seriesId);
+          w.date(r.day[i]!);
+          w.null();
+          const predict = r.isPredict[i] === 1;
+          w.bool(predict);
+          if (predict) w.null();
+          else w.int4(r.label[i]!);
+          for (let c = 0; c < F; c++) w.float8(cols[c]![i]!);
+        }
+        rows += r.n;
+        yield* w.take();
+      }
+      yield* w.end();
+    }
+    const copied = await tx.copyFrom(`COPY ${table} FROM STDIN (FORMAT binary)`, chunks());
+    if (copied !== rows)
+      throw new LarderError(
+        'COPY_COUNT',
+        `partition ${store}: wrote ${rows} rows, the server stored ${copied}`,
+      );
+    return rows;
+  });
+}
+
+export interface RefreshResult {
+  readonly snapshotId: number;
+  readonly table: string;
+  readonly rowCount: number;
+  readonly computedRows: number;
+  readonly droppedRows: number;
+}
+
+/**
+ * Moves the previous snapshot to the new cutoff in one transaction: drops its prediction rows
+ * and the training rows before the new first day, adds the computed rows, and points the
+ * catalogue row (under a new snapshot id) at the new cutoff and fingerprint. Readers holding
+ * the catalogue row (withSnapshot) see the previous snapshot whole or the new one whole.
+ */
+export async function finishRefresh(
+  db: Db,
+  plan: RefreshPlan,
+  timings: Record<string, unknown>,
+): Promise<RefreshResult> {
+  const b = plan.build;
+  const prevTable = quoteIdent(plan.previousTable);
+  const delta = quoteIdent(b.stagingTable);
+  const result = await db.transaction(async (tx) => {
+    await tx.query('SELECT pg_advisory_xact_lock(hashtext($1))', [`larder.build.${plan.set}.${plan.cutoff}`]);
+    await tx.query('SELECT pg_advisory_xact_lock(hashtext($1))', [
+      `larder.build.${plan.set}.${plan.previousCutoff}`,
+    ]);
+    const prev = await tx.query<{
+      snapshot_id: number;
+      row_count: number;
+      train_rows: number;
+      predict_rows: number;
+    }>(
+      'SELECT snapshot_id, row_count, train_rows, predict_rows FROM snapshots WHERE set_name = $1 AND cutoff = $2 FOR UPDATE',
+      [plan.set, plan.previousCutoff],
+    );
+    if (Number(prev.rows[0]?.snapshot_id) !== plan.previousSnapshotId) {
+      throw new LarderError(
+        'BUILD_GONE',
+        `the snapshot of ${plan.previousCutoff} was rebuilt or removed during the refresh`,
+      );
+    }
+    await checkLoadMark(tx, b);
+    const expected = b.partitions.length;
+    const parts = (
+      await tx.query<{ n: number }>(
+        `SELECT count(DISTINCT s.store_id)::int AS n FROM ${delta} d JOIN series s USING (series_id)`,
+      )
+    ).rows[0]!.n;
+    if (parts !== expected) {
+      throw new LarderError(
+        'PARTITIONS_MISSING',
+        `refresh ${b.stagingTable}: ${parts} of ${expected} partitions computed`,
+      );
+    }
+    // A snapshot already at the new cutoff (built earlier) is replaced by the refreshed one.
+    const old = await tx.query<{ table_name: string }>(
+      'DELETE FROM snapshots WHERE set_name = $1 AND cutoff = $2 RETURNING table_name',
+      [plan.set, plan.cutoff],
+    );
+    for (const r of old.rows)
+      if (r.table_name !== plan.previousTable)
+        await tx.exec(`DROP TABLE IF EXISTS ${quoteIdent(r.table_name)}`);
+    const dropped = (
+      await tx.query<{ train: number; predict: number }>(
+        `WITH d AS (DELETE FROM ${prevTable} WHERE is_predict OR day < $1::date RETURNING is_predict)
+         SELECT count(*) FILTER (WHERE NOT is_predict)::int8 AS train, count(*) FILTER (WHERE is_predict)::int8 AS predict FROM d`,
+        [plan.trainFrom],
+      )
+    ).rows[0]!;
+    const added = (
+      await tx.query<{ train: number; predict: number }>(
+        `WITH i AS (INSERT INTO ${prevTable} SELECT * FROM ${delta} ORDER BY series_id, day RETURNING is_predict)
+         SELECT count(*) FILTER (WHERE NOT is_predict)::int8 AS train, count(*) FILTER (WHERE is_predict)::int8 AS predict FROM i`,
+      )
+    ).rows[0]!;
+    const p = prev.rows[0]!;
+    const train = Number(p.train_rows) - Number(dropped.train) + Number(added.train);
+    const predict = Number(p.predict_rows) - Number(dropped.predict) + Number(added.predict);
+    const moved = await tx.query<{ id: number }>(
+      `UPDATE snapshots SET snapshot_id = nextval(pg_get_serial_sequence('snapshots', 'snapshot_id')), cutoff = $2,
+         data_fingerprint = $3, fingerprint_parts = $4, row_count = $5, train_rows = $6, predict_rows = $7,
+         train_from = $8, codes = $9, timings = $10, built_at = now()
+       WHERE snapshot_id = $1 RETURNING snapshot_id AS id`,
+      [
+        plan.previousSnapshotId,
+        plan.cutoff,
+        plan.dataFingerprint,
+        JSON.stringify(plan.fingerprintParts),
+        train + predict,
+        train,
+        predict,
+        plan.trainFrom,
+        JSON.stringify(b.codes),
+        JSON.stringify({ ...timings, refreshedFrom: plan.previousCutoff }),
+      ],
+    );
+    await tx.exec(`DROP TABLE ${delta}`);
+    if (b.groupTable) await tx.exec(`DROP TABLE IF EXISTS ${quoteIdent(b.groupTable)}`);
+    return {
+      snapshotId: Number(moved.rows[0]!.id),
+      table: plan.previousTable,
+      rowCount: train + predict,
+      computedRows: Number(added.train) + Number(added.predict),
+      droppedRows: Number(dropped.train) + Number(dropped.predict),
+    };
+  });
+  return result;
+}
+
+/** Drops a refresh's own tables (a plan that will not be finished). */
+export async function abortRefresh(db: Db, plan: RefreshPlan): Promise<void> {
+  await db.exec(`DROP TABLE IF EXISTS ${quoteIdent(plan.build.stagingTable)}`);
+  if (plan.build.groupTable) await db.exec(`DROP TABLE IF EXISTS ${quoteIdent(plan.build.groupTable)}`);
+}
+
+async function checkLoadMark(tx: DbSession, b: BuildPlan): Promise<void> {
+  const mark = (
+    await tx.query<{ n: number; last: number }>(
+      'SELECT count(*)::int8 AS n, coalesce(max(batch_id), 0)::int8 AS last FROM load_batches',
+    )
+  ).rows[0]!;
+  if (Number(mark.n) !== b.loadMark.batches || Number(mark.last) !== b.loadMark.lastBatch) {
+    throw new LarderError('DATA_CHANGED', 'data was loaded while the refresh ran: run again');
+  }
+}

@@ -1,0 +1,126 @@
+import { mkdtempSync } from 'node:fs';
+import { tmpdir } from 'node:os';
+import { join } from 'node:path';
+import { afterAll, beforeAll, expect, test } from 'vitest';
+import { buildSnapshot } from '../../../src/build/build-snapshot.js';
+import { parseConfig } from '../../../src/config/config.js';
+import { formatDay, parseDay } from '../../../src/core/days.js';
+import { useTestDb } from '../../helpers/db.js';
+import { databaseUrl, redisServerUrl } from '../../helpers/servers.js';
+import { SMALL_SET, seedChain, snapshotChecksum, writeSalesCsv } from './chain-fixture.js';
+import { type ChildEnv, runnerConfig, spawnLarder, writeConfig } from './processes.js';
+
+const t = useTestDb(import.meta.url);
+let env: ChildEnv;
+let watch: string;
+let rawConfig: Record<string, unknown>;
+const FIRST = '2024-01-01';
+const DAYS = 110;
+const LAST = formatDay(parseDay(FIRST)! + DAYS - 1);
+
+beforeAll(async () => {
+  const { db, schema } = t();
+  await seedChain(db, { stores: 3, items: 6, firstDay: FIRST, days: DAYS });
+  // A long zero run on one series that is still open at the first cutoff and closes two days
+  // later: the stock-out mask of the refreshed rows must match a full rebuild's.
+  await db.query(
+    `UPDATE sales SET units = 0 WHERE series_id = (SELECT min(series_id) FROM series) AND day > $1::date - 14`,
+    [LAST],
+  );
+  watch = mkdtempSync(join(tmpdir(), 'larder-watch-'));
+  rawConfig = runnerConfig(
+    schema,
+    { watch: { dir: watch }, sets: ['small'] },
+    // The reference: the same definition under another name, always built in full.
+    { sets: [SMALL_SET, { ...SMALL_SET, name: 'small_ref' }] },
+  );
+  env = {
+    databaseUrl: await databaseUrl(),
+    redisUrl: await redisServerUrl(),
+    schema,
+    configPath: writeConfig(rawConfig),
+  };
+});
+
+afterAll(async () => {
+  const { Redis } = await import('ioredis');
+  const redis = new Redis(await redisServerUrl());
+  const keys = await redis.keys(`${t().schema}*`);
+  if (keys.length) await redis.del(...keys);
+  redis.disconnect();
+});
+
+test('one more day of sales at a time, 5 days running: the refresh equals a full rebuild cell for cell', async () => {
+  const { db, schema } = t();
+  const first = await spawnLarder(['run', '--cutoff', 'latest'], env).done;
+  expect(first.code, first.output).toBe(0);
+  expect(first.output).toContain('full build (no earlier snapshot of the set)');
+
+  const config = parseConfig({ ...rawConfig, database: { url: env.databaseUrl, schema } }, 'test');
+  const zeroItem = (
+    await db.query<{ item_id: string; store_id: string }>(
+      'SELECT item_id, store_id FROM series ORDER BY series_id LIMIT 1',
+    )
+  ).rows[0]!;
+  for (let k = 1; k <= 5; k++) {
+    const day = formatDay(parseDay(LAST)! + k);
+    await writeSalesCsv(db, day, join(watch, `sales_${day}.csv`), (item, store) =>
+      item === zeroItem.item_id && store === zeroItem.store_id && k <= 2 ? 0 : undefined,
+    );
+    const r = await spawnLarder(['run', '--cutoff', 'latest'], env).done;
+    const why = await db.query<{ message: string }>(`SELECT message FROM findings WHERE severity = 'block'`);
+    expect(r.code, `${r.output}\n${why.rows.map((x) => x.message).join('\n')}`).toBe(0);
+    expect(r.output).toContain(`loading sales_${day}.csv`);
+    expect(r.output).toContain(`refreshed from ${formatDay(parseDay(day)! - 1)}`);
+    const step = (
+      await db.query<{ details: { mode: string; computedRows: number } }>(
+        `SELECT details FROM run_steps WHERE name = 'build' ORDER BY step_id DESC LIMIT 1`,
+      )
+    ).rows[0]!.details;
+    expect(step.mode).toBe('incremental');
+    // 18 series: one new training row and H = 7 prediction rows each.
+    expect(step.computedRows).toBe(18 * 8);
+
+    await buildSnapshot(db, config, { set: 'small_ref', cutoff: day });
+    const refreshed = await snapshotChecksum(db, 'small', day);
+    const full = await snapshotChecksum(db, 'small_ref', day);
+    expect(refreshed, `day ${k} (${day})`).toEqual(full);
+    const catalogue = (
+      await db.query<{
+        set_name: string;
+        row_count: number;
+        train_rows: number;
+        predict_rows: number;
+        data_fingerprint: string;
+      }>(
+        `SELECT set_name, row_count, train_rows, predict_rows, data_fingerprint FROM snapshots WHERE cutoff = $1 ORDER BY set_name`,
+        [day],
+      )
+    ).rows;
+    expect(catalogue[0]!.row_count).toBe(catalogue[1]!.row_count);
+    expect(catalogue[0]!.train_rows).toBe(catalogue[1]!.train_rows);
+    expect(catalogue[0]!.predict_rows).toBe(catalogue[1]!.predict_rows);
+    expect(catalogue[0]!.data_fingerprint).toBe(catalogue[1]!.data_fingerprint);
+  }
+  // The refresh advanced the one table: the earlier cutoffs of `small` are gone from the catalogue.
+  const smalls = (await db.query<{ cutoff: string }>(`SELECT cutoff FROM snapshots WHERE set_name = 'small'`))
+    .rows;
+  expect(smalls.map((s) => s.cutoff)).toEqual([formatDay(parseDay(LAST)! + 5)]);
+});
+
+test('a change to older data makes the next run build in full, to the same cells as the reference', async () => {
+  const { db, schema } = t();
+  const last = formatDay(parseDay(LAST)! + 5);
+  const next = formatDay(parseDay(last)! + 1);
+  // A late correction of a day the previous snapshot already saw.
+  await db.query(`UPDATE sales SET units = units + 1 WHERE day = $1::date - 20`, [last]);
+  await writeSalesCsv(db, next, join(watch, `sales_${next}.csv`));
+  const r = await spawnLarder(['run', '--cutoff', 'latest'], env).done;
+  expect(r.code, r.output).toBe(0);
+  expect(r.output).toContain(
+    `full build (data inside the boundaries of the snapshot of ${last} changed since it was built)`,
+  );
+  const config = parseConfig({ ...rawConfig, database: { url: env.databaseUrl, schema } }, 'test');
+  await buildSnapshot(db, config, { set: 'small_ref', cutoff: next });
+  expect(await snapshotChecksum(db, 'small', next)).toEqual(await snapshotChecksum(db, 'small_ref', next));
+});
