@@ -51,7 +51,7 @@ function rules(naturalLowDays: ReadonlySet<string>): Record<FaultKind, Rule> {
     },
     'price-spike': {
       codes: ['price-spike'],
-      // Issue 3's target: spikes of at least 3x or at most 1/3 of the regular price.
+      // The target covers spikes of at least 3x or at most 1/3 of the regular price.
       eligible: (f) => f.kind === 'price-spike' && (f.ratio >= 3 || f.ratio <= 1 / 3),
       match: (f, x) =>
         f.kind === 'price-spike' && sameSeries(x, f.item_id, f.store_id) && x.weekStart === f.week_start,

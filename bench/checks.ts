@@ -3,7 +3,7 @@
  *
  * 1. Detection quality: the demo generator's default chain (4 stores x 60 items x 910 days) at
  *    each seed, loaded by the loader and checked; findings scored against faults.json per fault
- *    kind (recall, precision). Issue 3's target: recall >= 0.95, precision >= 0.90.
+ *    kind (recall, precision). Target: recall >= 0.95, precision >= 0.90.
  * 2. Speed: every check on the benchmark chain (10 stores x 3000 items x 1900 days = 57M sales
  *    rows at scale 1; the scale multiplies the items) against one ordered binary COPY read of the
  *    sales table consumed by Node, measured in the same run. Target: ratio <= 1.5.

@@ -23,3 +23,19 @@ export {
 export { materializeScales, type MaterializeSummary } from './eval/materialize-scales.js';
 export { scoreForecasts, type ScoreOptions, type ScoreResult } from './eval/score-forecasts.js';
 export { mase, maseScale, rmsse, rmsseScale, wrmsse } from './eval/metrics.js';
+export {
+  runChecks,
+  type CheckRunResult,
+  type CheckSummary,
+  type RunChecksOptions,
+} from './checks/run-checks.js';
+export { readFindings, latestRunId, type ReadFindingsOptions } from './checks/read-findings.js';
+export { addWaiver, listWaivers, revokeWaiver, type Waiver, type WaiverInput } from './checks/waivers.js';
+export { writeReport } from './checks/report/write-report.js';
+export {
+  classifyZeroRuns,
+  zeroProbability,
+  criticalRunLength,
+  type ZeroRun,
+} from './checks/stockout-rule.js';
+export type { Finding, FindingCode, FindingDetails, Severity } from './checks/finding.js';

@@ -13,8 +13,8 @@ export const SEVERITY_ORDER: Readonly<Record<Severity, number>> = Object.freeze(
 });
 
 /**
- * What each finding code carries in `details`, keyed by code. A finding is data (like a zod
- * issue): the keys, the days, the observed value and the threshold it was held against.
+ * What each finding code carries in `details`, keyed by code. A finding is data, not an error:
+ * the keys, the days, the observed value and the threshold it was held against.
  */
 export interface FindingDetails {
   'duplicate-row': { file: string; line: number; other_line: number; key: string | null; batch_id: number };

@@ -8,9 +8,9 @@ import { unpricedWeeks } from './sold-weeks.js';
 export const priceSpikesParams = checkParams(
   ['price-spike', 'non-positive-price', 'week-misaligned', 'missing-price'],
   {
-    /** Modified z-score limit (Iglewicz and Hoaglin 1993 recommend 3.5). */
+    /** Modified z-score limit (3.5, the usual cut-off for this score). */
     threshold: positiveNumber(3.5),
-    /** Trailing weeks forming the baseline (issue 3: 13, a retail quarter). */
+    /** Trailing weeks forming the baseline (13: a retail quarter; common practice). */
     historyWeeks: intAtLeast(1, 13),
     /**
      * Below this many baseline weeks only the ratio rule applies: a z-score on two or three
@@ -25,7 +25,7 @@ export const priceSpikesParams = checkParams(
      * three seeds: with no floor, 22% regular price steps (MAD 4% of the price) scored z = 4.05;
      * with a 5% floor, 32%-off promotions (MAD 2%) still scored 4.4, and spike precision was 0.77.
      * At 10% a flag needs a move of 3.5 / 0.6745 x 10% = 52% of the median. Set 0 for the plain
-     * Iglewicz-Hoaglin rule.
+     * modified z-score rule.
      */
     minRelativeMad: share(0.1),
   },

@@ -1,6 +1,6 @@
 /**
  * Robust location and scale for the outlier checks: median, median absolute deviation and the
- * modified z-score of Iglewicz and Hoaglin (1993), M = 0.6745 (x - median) / MAD.
+ * modified z-score M = 0.6745 (x - median) / MAD.
  */
 
 /** 0.6745 ~ Phi^-1(0.75): makes MAD comparable with a standard deviation under normality. */
@@ -8,7 +8,7 @@ export const MODIFIED_Z_FACTOR = 0.6745;
 
 /**
  * Rearranges `a` so that a[k] holds the k-th smallest value, everything before it is <= a[k]
- * and everything after >= a[k] (Hoare's selection, expected O(n): the checks call it on short
+ * and everything after >= a[k] (quickselect, expected O(n): the checks call it on short
  * windows millions of times, where two full sorts per call were measurable).
  */
 export function selectInPlace(a: Float64Array, k: number): number {

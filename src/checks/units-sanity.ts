@@ -5,7 +5,7 @@ import type { FindingDraft } from './finding.js';
 import { MODIFIED_Z_FACTOR, medianAndMad, medianInPlace } from './robust-stats.js';
 
 export const unitsSanityParams = checkParams(['negative-units', 'units-spike'], {
-  /** Modified z-score above which a single day is a spike (issue 3: 10). */
+  /** Modified z-score above which a single day is a spike (10: far past the 3.5 outlier cut-off, as promotions are routine; common practice). */
   spikeThreshold: positiveNumber(10),
   /** Trailing days the spike is judged against. */
   window: intAtLeast(7, 28),
@@ -30,9 +30,8 @@ export interface SpikeScore {
 }
 
 /**
- * Modified z-score of `x` against `window[0..n)`: 0.6745 (x - median) / MAD (Iglewicz and
- * Hoaglin 1993); when MAD is 0 the scale falls back to 1.253314 x mean absolute deviation, and
- * the scale never drops below `minScale`.
+ * Modified z-score of `x` against `window[0..n)`: 0.6745 (x - median) / MAD; when MAD is 0 the
+ * scale falls back to 1.253314 x mean absolute deviation, and it never drops below `minScale`.
  */
 export function spikeScore(
   x: number,

@@ -5,9 +5,9 @@ import type { FindingDraft } from './finding.js';
 import type { DailyTotals } from './sales-pass.js';
 
 export const volumeDropParams = checkParams(['volume-drop'], {
-  /** Flag a day below this share of its baseline (issue 3: 50%, a partial load; common practice). */
+  /** Flag a day below this share of its baseline (half: a partial load; common practice). */
   minShare: share(0.5),
-  /** Same weekdays looked back for the baseline median (issue 3: 4). */
+  /** Same weekdays looked back for the baseline median (four: a month; common practice). */
   weeks: intAtLeast(1, 4),
   /** Baseline weeks that must exist before a day is judged. */
   minWeeks: intAtLeast(1, 4),

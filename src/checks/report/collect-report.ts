@@ -58,7 +58,7 @@ export interface ReportSeries {
 }
 
 export interface CollectOptions {
-  /** How many flagged series get their own chart (issue 3: the 20 worst). */
+  /** How many flagged series get their own chart (default: the 20 worst). */
   readonly worstSeries?: number;
   /** Rows in the findings table. */
   readonly tableRows?: number;
