@@ -3,6 +3,8 @@
  * rows, and `larder score` over the 12 levels.
  *
  *   --rows N          synthetic snapshot rows (default 1,000,000), --features F (default 40)
+ *   --layout build|sorted  synthetic table stored as the build writes it (per store, series ids
+ *                     item-major: not in row order, so the export sorts; default) or in row order
  *   --set S --cutoff C  export a snapshot built by `larder build` instead (no synthetic table)
  *   --score-series N  bottom series of the synthetic scoring chain (default 3,000; 30,000 = full)
  *   --score-days D    days of sales history before the cutoff (default 200)
@@ -32,6 +34,7 @@ import { OutOfOrderError, readSnapshot } from '../src/export/snapshot-reader.js'
 const OPTIONS = {
   rows: { type: 'string', default: '1000000' },
   features: { type: 'string', default: '40' },
+  layout: { type: 'string', default: 'build' },
   set: { type: 'string' },
   cutoff: { type: 'string' },
   schema: { type: 'string', default: 'bench_export' },
@@ -69,7 +72,12 @@ function child(args: string[]): Record<string, number> {
 const maxRssMb = () => process.resourceUsage().maxRSS / 1024;
 
 /** A synthetic snapshot in the contract's layout: `rows` rows, `features` float8 columns with NULLs. */
-async function makeSyntheticSnapshot(config: Config, rows: number, features: number): Promise<void> {
+async function makeSyntheticSnapshot(
+  config: Config,
+  rows: number,
+  features: number,
+  layout: string,
+): Promise<void> {
   const db = await openDatabase(config, { poolSize: 1 });
   try {
     const days = 400;
@@ -80,7 +88,7 @@ async function makeSyntheticSnapshot(config: Config, rows: number, features: num
       INSERT INTO stores SELECT 'store_' || s, 'region_' || (s % 3) FROM generate_series(1, 10) s;
       INSERT INTO items SELECT 'item_' || lpad(i::text, 5, '0'), 'dept_' || (i % 7), 'cat_' || (i % 3)
         FROM generate_series(1, ${Math.ceil(series / 10)}) i;
-      INSERT INTO series (item_id, store_id) SELECT item_id, store_id FROM items, stores ORDER BY store_id, item_id LIMIT ${series};
+      INSERT INTO series (item_id, store_id) SELECT item_id, store_id FROM items, stores ORDER BY item_id, store_id LIMIT ${series};
       CREATE TABLE snap_bench (series_id int4 NOT NULL, day date NOT NULL, origin date, is_predict bool NOT NULL, label int4,
         ${cols.map((c) => `${c} float8`).join(', ')})`);
     // Values in the range real features take (counts, means of counts, ratios), one in 9 NULL.
@@ -91,7 +99,8 @@ async function makeSyntheticSnapshot(config: Config, rows: number, features: num
     await db.exec(`INSERT INTO snap_bench
       SELECT s.series_id, DATE '${SYNTH_CUTOFF}' - ${days - 29} + d, NULL, d >= ${days - 28},
         CASE WHEN d >= ${days - 28} THEN NULL ELSE abs(hashint4(s.series_id + d)) % 20 END, ${exprs.join(', ')}
-      FROM series s CROSS JOIN generate_series(1, ${days}) d ORDER BY s.series_id, d`);
+      FROM series s CROSS JOIN generate_series(1, ${days}) d
+      ORDER BY ${layout === 'sorted' ? 's.series_id, d' : 's.store_id, s.series_id, d'}`);
     const n = (await db.query<{ n: number }>('SELECT count(*)::int AS n FROM snap_bench')).rows[0]!.n;
     await db.query(
       `INSERT INTO snapshots (set_name, cutoff, definition_hash, data_fingerprint, table_name, mode, horizon, columns,
@@ -245,9 +254,11 @@ export async function main(args: string[]): Promise<void> {
       if (!set) {
         const config = await benchConfig(schema);
         const t0 = performance.now();
-        await makeSyntheticSnapshot(config, Number(o.rows), Number(o.features));
+        if (o.layout !== 'build' && o.layout !== 'sorted') throw new Error('--layout is build or sorted');
+        await makeSyntheticSnapshot(config, Number(o.rows), Number(o.features), o.layout);
+        const stored = o.layout === 'build' ? 'per store, as the build writes it' : 'in row order';
         line(
-          `synthetic snapshot: ${o.rows} rows x ${o.features} features in ${((performance.now() - t0) / 1000).toFixed(1)} s`,
+          `synthetic snapshot: ${o.rows} rows x ${o.features} features stored ${stored}, in ${((performance.now() - t0) / 1000).toFixed(1)} s`,
         );
         set = SYNTH_SET;
         cutoff = SYNTH_CUTOFF;
