@@ -22,6 +22,7 @@ import { parseArgs } from 'node:util';
 import { DuckDBDataChunk, DuckDBInstance, INTEGER } from '@duckdb/node-api';
 import examples from '../examples/larder.config.js';
 import { buildSnapshot } from '../src/build/build-snapshot.js';
+import { salesCopySql } from '../src/build/partition-input.js';
 import { dayLiteral, quoteLiteral } from '../src/build/sql-text.js';
 import { parseConfig } from '../src/config/config.js';
 import { readEnv } from '../src/config/env.js';
@@ -64,7 +65,7 @@ async function generate(db: Db, s: Shape): Promise<void> {
       SELECT r.series_id, ${start} + d,
         CASE WHEN abs(hashint8extended(r.series_id::int8 * 10000 + d, 1)) % 100 < 20 + r.series_id % 60 THEN 0
              ELSE 1 + (abs(hashint8extended(r.series_id::int8 * 10000 + d, 2)) % (1 + r.series_id % 9))::int4 END
-      FROM series r, generate_series(0, ${s.days - 1}) d`);
+      FROM series r, generate_series(0, ${s.days - 1}) d ORDER BY r.series_id, d`);
   await db.exec(`
     INSERT INTO prices (item_id, store_id, week_start, price)
       SELECT r.item_id, r.store_id, ${start} + 7 * w,
@@ -95,12 +96,7 @@ async function overPartitions<T>(
   return out;
 }
 
-function salesSql(store: string, from: number | null, cutoff: number): string {
-  return `COPY (SELECT s.series_id, s.day, s.units FROM sales s
-    WHERE s.series_id IN (SELECT series_id FROM series WHERE store_id = ${quoteLiteral(store)})
-      ${from === null ? '' : `AND s.day >= ${dayLiteral(from)}`} AND s.day <= ${dayLiteral(cutoff)}
-    ORDER BY s.series_id, s.day) TO STDOUT (FORMAT binary)`;
-}
+const salesSql = salesCopySql;
 
 /** (a) the I/O floor: COPY out the partition's input rows, COPY in as many output rows of the same shape. */
 async function ioFloor(

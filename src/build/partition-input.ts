@@ -63,7 +63,21 @@ export async function readPartitionSeries(
 }
 
 /**
- * Reads the store's sales for days base..cutoff in series order with one binary COPY and fills
+ * The COPY of one store's sales for days from..cutoff (all days when `from` is null). A lateral
+ * index range scan per series (OFFSET 0 keeps the planner from flattening it into a join), so a
+ * store reads its own rows and never scans the whole table, which a plain join led the planner
+ * to do once per partition, plus a sort. Rows come grouped by series; the reader places them by
+ * day, so no sort is needed.
+ */
+export function salesCopySql(store: string, from: number | null, cutoff: number): string {
+  return `COPY (SELECT x.series_id, x.day, x.units
+      FROM (SELECT series_id FROM series WHERE store_id = ${quoteLiteral(store)}) r
+      CROSS JOIN LATERAL (SELECT s.series_id, s.day, s.units FROM sales s WHERE s.series_id = r.series_id
+        ${from === null ? '' : `AND s.day >= ${dayLiteral(from)}`} AND s.day <= ${dayLiteral(cutoff)} OFFSET 0) x) TO STDOUT (FORMAT binary)`;
+}
+
+/**
+ * Reads the store's sales for days base..cutoff with one binary COPY and fills
  * each series' dense `units` (NaN where there is no row).
  */
 export async function readPartitionSales(
@@ -79,10 +93,7 @@ export async function readPartitionSales(
     x.units = new Float64Array(len).fill(Number.NaN);
     index.set(x.seriesId, x);
   }
-  const sql = `COPY (SELECT s.series_id, s.day, s.units FROM sales s
-      WHERE s.series_id IN (SELECT series_id FROM series WHERE store_id = ${quoteLiteral(store)})
-        AND s.day BETWEEN ${dayLiteral(base)} AND ${dayLiteral(cutoff)}
-      ORDER BY s.series_id, s.day) TO STDOUT (FORMAT binary)`;
+  const sql = salesCopySql(store, base, cutoff);
   let rows = 0;
   let cur: PartitionSeries | undefined;
   let curId = -1;
@@ -138,7 +149,10 @@ export function storeGroups(
   return out;
 }
 
-/** Weekly prices of the store's items up to the price boundary, plus department price counts. */
+/**
+ * Weekly prices of the store's items (those with a series in the store) up to the price
+ * boundary, plus per department and week the count of items at each price.
+ */
 export async function readPartitionPrices(
   s: DbSession,
   store: string,
@@ -148,9 +162,13 @@ export async function readPartitionPrices(
   prices: Map<string, ItemPrices>;
   deptPrices: Map<string, Map<number, Map<number, number>>>;
 }> {
-  const sql = `COPY (SELECT item_id, week_start, price::float8 FROM prices
-      WHERE store_id = ${quoteLiteral(store)} AND week_start <= ${dayLiteral(priceBoundary)}
-      ORDER BY item_id, week_start) TO STDOUT (FORMAT binary)`;
+  // Per item of the store's series, a range scan of the prices key (item_id, store_id, week_start):
+  // the key does not lead with the store, so filtering on it alone would scan every price.
+  const st = quoteLiteral(store);
+  const sql = `COPY (SELECT x.item_id, x.week_start, x.price FROM (SELECT item_id FROM series WHERE store_id = ${st} ORDER BY item_id) r
+      CROSS JOIN LATERAL (SELECT p.item_id, p.week_start, p.price::float8 AS price FROM prices p
+        WHERE p.item_id = r.item_id AND p.store_id = ${st} AND p.week_start <= ${dayLiteral(priceBoundary)}
+        ORDER BY p.week_start OFFSET 0) x) TO STDOUT (FORMAT binary)`;
   const prices = new Map<string, ItemPrices>();
   const deptPrices = new Map<string, Map<number, Map<number, number>>>();
   let curItem: string | null = null;
