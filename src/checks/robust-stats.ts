@@ -11,9 +11,9 @@ export const MODIFIED_Z_FACTOR = 0.6745;
  * and everything after >= a[k] (quickselect, expected O(n): the checks call it on short
  * windows millions of times, where two full sorts per call were measurable).
  */
-export function selectInPlace(a: Float64Array, k: number): number {
+export function selectInPlace(a: Float64Array, k: number, n = a.length): number {
   let lo = 0;
-  let hi = a.length - 1;
+  let hi = n - 1;
   while (hi > lo) {
     const pivot = a[(lo + hi) >> 1]!;
     let i = lo;
@@ -36,12 +36,11 @@ export function selectInPlace(a: Float64Array, k: number): number {
   return a[k]!;
 }
 
-/** Median of `a`, which is reordered in place; NaN when empty. */
-export function medianInPlace(a: Float64Array): number {
-  const n = a.length;
+/** Median of the first `n` values of `a`, which are reordered in place; NaN when n is 0. */
+export function medianInPlace(a: Float64Array, n = a.length): number {
   if (n === 0) return Number.NaN;
   const h = n >> 1;
-  const upper = selectInPlace(a, h);
+  const upper = selectInPlace(a, h, n);
   if (n % 2) return upper;
   // The lower middle is the largest value left of the upper one.
   let lower = a[0]!;
@@ -75,9 +74,8 @@ export function medianAndMad(
   n: number,
   scratch: Float64Array,
 ): { median: number; mad: number } {
-  const a = scratch.subarray(0, n);
-  for (let i = 0; i < n; i++) a[i] = values[i] as number;
-  const med = medianInPlace(a);
-  for (let i = 0; i < n; i++) a[i] = Math.abs((values[i] as number) - med);
-  return { median: med, mad: medianInPlace(a) };
+  for (let i = 0; i < n; i++) scratch[i] = values[i] as number;
+  const med = medianInPlace(scratch, n);
+  for (let i = 0; i < n; i++) scratch[i] = Math.abs((values[i] as number) - med);
+  return { median: med, mad: medianInPlace(scratch, n) };
 }

@@ -74,7 +74,7 @@ export function classifyZeroRuns(
 ): ZeroRun[] {
   const n = units.length;
   const runs: ZeroRun[] = [];
-  const flagged = new Uint8Array(n);
+  const { alpha, lookback, minHistory } = params;
   let firstSale = -1;
   for (let i = 0; i < n; i++) {
     if ((units[i] as number) > 0) {
@@ -82,13 +82,14 @@ export function classifyZeroRuns(
       break;
     }
   }
-  // Window [lo, hi) of history days; a day counts when sold-era, stored and not in a flagged run.
-  let lo = 0;
-  let hi = 0;
+  // Window [lo, hi) of history days, starting at the first sale; a day counts when stored and
+  // not in a flagged run.
+  const flagged = new Uint8Array(n);
+  let lo = Math.max(firstSale, 0);
+  let hi = lo;
   let cnt = 0;
   let sum = 0;
   let sumSq = 0;
-  const counts = (j: number) => j >= firstSale && !flagged[j] && !Number.isNaN(units[j] as number);
 
   let i = 0;
   while (i < n) {
@@ -99,47 +100,66 @@ export function classifyZeroRuns(
     const start = i;
     while (i < n && units[i] === 0) i++;
     const end = i - 1;
-    const base = { start, end, mean: Number.NaN, variance: Number.NaN, p0: Number.NaN };
     if (firstSale < 0 || start < firstSale) {
-      runs.push({ ...base, kind: 'pre-launch', kStar: Number.POSITIVE_INFINITY, detectable: -1 });
+      runs.push(
+        run(start, end, 'pre-launch', Number.NaN, Number.NaN, Number.NaN, Number.POSITIVE_INFINITY, -1),
+      );
       continue;
     }
     for (; hi < start; hi++) {
-      if (!counts(hi)) continue;
       const v = units[hi] as number;
+      if (flagged[hi] || Number.isNaN(v)) continue;
       cnt++;
       sum += v;
       sumSq += v * v;
     }
-    for (; lo < start - params.lookback; lo++) {
-      if (!counts(lo)) continue;
+    for (const stop = start - lookback; lo < stop; lo++) {
       const v = units[lo] as number;
+      if (flagged[lo] || Number.isNaN(v)) continue;
       cnt--;
       sum -= v;
       sumSq -= v * v;
     }
     const open = end === n - 1;
-    if (cnt < params.minHistory) {
-      runs.push({
-        ...base,
-        kind: open ? 'open' : 'unjudged',
-        kStar: Number.POSITIVE_INFINITY,
-        detectable: -1,
-      });
+    if (cnt < minHistory) {
+      runs.push(
+        run(
+          start,
+          end,
+          open ? 'open' : 'unjudged',
+          Number.NaN,
+          Number.NaN,
+          Number.NaN,
+          Number.POSITIVE_INFINITY,
+          -1,
+        ),
+      );
       continue;
     }
     const mean = sum / cnt;
     // Sample variance; sums of integer units are exact in doubles, so no drift from sliding.
     const variance = cnt > 1 ? Math.max(0, (sumSq - (sum * sum) / cnt) / (cnt - 1)) : 0;
     const p0 = zeroProbability(mean, variance);
-    const kStar = criticalRunLength(p0, params.alpha);
-    const len = end - start + 1;
-    const reached = len >= kStar;
-    const detectable = reached ? start + kStar - 1 : -1;
+    const kStar = criticalRunLength(p0, alpha);
+    const reached = end - start + 1 >= kStar;
     const kind: ZeroRunKind = open ? 'open' : reached ? 'stockout' : 'plausible';
     // Flagged before the window reaches these days, so they never enter later runs' history.
     if (kind === 'stockout') flagged.fill(1, start, end + 1);
-    runs.push({ start, end, mean, variance, p0, kStar, detectable, kind });
+    runs.push(run(start, end, kind, mean, variance, p0, kStar, reached ? start + kStar - 1 : -1));
   }
   return runs;
+}
+
+/** One shape for every run object, so the hot loop stays monomorphic (slow sellers have hundreds). */
+function run(
+  start: number,
+  end: number,
+  kind: ZeroRunKind,
+  mean: number,
+  variance: number,
+  p0: number,
+  kStar: number,
+  detectable: number,
+): ZeroRun {
+  return { start, end, kind, mean, variance, p0, kStar, detectable };
 }

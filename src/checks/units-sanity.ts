@@ -134,8 +134,8 @@ export const unitsSanity = defineCheck({
           let m = 0;
           for (let j = Math.max(0, d - w); j < d; j++) if (!Number.isNaN(u[j]!)) win[m++] = u[j]!;
           // The median alone rules out most of the rest: a spike needs x - median > T x minScale.
-          scratch.set(win.subarray(0, m));
-          if (x - medianInPlace(scratch.subarray(0, m)) <= limit) continue;
+          for (let j = 0; j < m; j++) scratch[j] = win[j]!;
+          if (x - medianInPlace(scratch, m) <= limit) continue;
           const score = spikeScore(x, win, m, p.minScale, scratch);
           if (!(score.z > p.spikeThreshold)) continue;
           drafts.push({
