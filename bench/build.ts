@@ -1,5 +1,6 @@
 /**
- * `npm run bench -- build [--scale small|full] [--stores N --items N --days N] [--fresh] [--keep]`
+ * `npm run bench -- build [--scale small|full] [--stores N --items N --days N] [--fresh] [--keep]
+ *   [--refs a,b,c]` (--refs picks the references measured; default all three)
  *
  * The feature build on a synthetic chain (full: 10 stores x 3,000 items x 1,900 days = 57M sales
  * rows; small: 10 x 30 x 1,900) in its own schema `bench_build` (kept between runs unless its
@@ -283,6 +284,7 @@ export async function main(argv: string[]): Promise<void> {
       days: { type: 'string' },
       fresh: { type: 'boolean', default: false },
       keep: { type: 'boolean', default: false },
+      refs: { type: 'string', default: 'a,b,c' },
     },
   });
   const base = SCALES[o.scale as keyof typeof SCALES];
@@ -342,7 +344,10 @@ export async function main(argv: string[]): Promise<void> {
       rowsPer.set(r.store_id, Number(r.n));
     // The standard set masks stock-outs, so its build reads the whole history.
     const readFromStd = std.stockout ? null : parseDay(info.trainFrom)!;
-    const floorMs = await ioFloor(db, parts, rowsPer, std.columns.length, readFromStd, cutoff, limit);
+    const refs = new Set(o.refs.split(','));
+    const floorMs = refs.has('a')
+      ? await ioFloor(db, parts, rowsPer, std.columns.length, readFromStd, cutoff, limit)
+      : Number.NaN;
 
     // The window-only set and its two references.
     const def = std.definition;
@@ -365,8 +370,13 @@ export async function main(argv: string[]): Promise<void> {
     const spec = windowSpecs(def.families.lags!.days, def.families.windows!);
     const from = parseDay(winfo.trainFrom)!;
     const reach = Math.max(...spec.lags, ...spec.windows.map((w) => w.shift + w.size - 1));
-    const pgRef = await postgresStatement(db, spec, from, from - reach, cutoff, def.horizon);
-    const duck = await duckdb(db, parts, spec, from, from - reach, cutoff, def.horizon);
+    const skipped = { ms: Number.NaN, streamMs: Number.NaN, rows: 0 };
+    const pgRef = refs.has('b')
+      ? await postgresStatement(db, spec, from, from - reach, cutoff, def.horizon)
+      : skipped;
+    const duck = refs.has('c')
+      ? await duckdb(db, parts, spec, from, from - reach, cutoff, def.horizon)
+      : skipped;
 
     const figures = {
       shape,

@@ -1,4 +1,5 @@
 import { randomBytes } from 'node:crypto';
+import { availableParallelism } from 'node:os';
 import type { Config } from '../config/config.js';
 import { formatDay, parseDay } from '../core/days.js';
 import { type Db, quoteIdent, safeIdent } from '../db/database.js';
@@ -12,7 +13,8 @@ import {
 } from '../features/feature-set.js';
 import { type GroupLevel, LEVELS } from '../features/group-levels.js';
 import { dataFingerprint, type FingerprintPart } from './fingerprint.js';
-import { chainLevels, stageGroupStatements } from './group-stage.js';
+import { stageChainGroups } from './chain-groups.js';
+import { chainLevels } from './group-stage.js';
 import { trainingOrigins } from './series-rows.js';
 
 /** What to build: a set of the config, a cutoff, optionally the first training day. */
@@ -173,6 +175,7 @@ export async function planBuild(
 
   try {
     // The fingerprint and the group totals are independent scans: run them side by side.
+    const concurrency = Math.min(db.parallelism, availableParallelism());
     const tp = performance.now();
     const timed = async <T>(name: string, p: Promise<T>) => {
       const v = await p;
@@ -188,11 +191,10 @@ export async function planBuild(
       groupTable
         ? timed(
             'groupsMs',
-            db.session(async (s) => {
-              for (const sql of stageGroupStatements(groupTable, w.chain, w.groupFrom, cutoff))
-                await s.exec(sql);
-              await s.exec(`ANALYZE ${quoteIdent(groupTable)}`);
-            }),
+            (async () => {
+              await stageChainGroups(db, groupTable, w.chain, w.groupFrom, cutoff, concurrency);
+              await db.exec(`ANALYZE ${quoteIdent(groupTable)}`);
+            })(),
           )
         : Promise.resolve(),
     ]);

@@ -52,3 +52,56 @@ export async function* readRawCopy(source: AsyncIterable<Uint8Array>): AsyncGene
   }
   if (headerDone) throw new Error('binary COPY stream ended without its trailer');
 }
+
+/** Rows of text and bytea fields in binary COPY format, in chunks of about `chunkSize` bytes. */
+export class RawCopyWriter {
+  private parts: Buffer[] = [Buffer.concat([SIGNATURE, Buffer.alloc(8)])];
+  private size = 19;
+
+  constructor(private readonly chunkSize = 1 << 20) {}
+
+  /** One row; strings are written as UTF-8 text, byte arrays as they are, null as NULL. */
+  row(fields: ReadonlyArray<string | Uint8Array | null>): void {
+    const head = Buffer.allocUnsafe(2);
+    head.writeInt16BE(fields.length, 0);
+    this.push(head);
+    for (const f of fields) {
+      const len = Buffer.allocUnsafe(4);
+      if (f === null) {
+        len.writeInt32BE(-1, 0);
+        this.push(len);
+        continue;
+      }
+      const bytes =
+        typeof f === 'string' ? Buffer.from(f, 'utf8') : Buffer.from(f.buffer, f.byteOffset, f.byteLength);
+      len.writeInt32BE(bytes.length, 0);
+      this.push(len);
+      this.push(bytes);
+    }
+  }
+
+  private push(b: Buffer): void {
+    this.parts.push(b);
+    this.size += b.length;
+  }
+
+  /** Completed chunks (call between rows to stream). */
+  take(): Buffer[] {
+    if (this.size < this.chunkSize) return [];
+    const out = Buffer.concat(this.parts);
+    this.parts = [];
+    this.size = 0;
+    return [out];
+  }
+
+  /** The trailer and whatever is left. */
+  end(): Buffer[] {
+    const t = Buffer.allocUnsafe(2);
+    t.writeInt16BE(-1, 0);
+    this.push(t);
+    const out = Buffer.concat(this.parts);
+    this.parts = [];
+    this.size = 0;
+    return [out];
+  }
+}

@@ -1,7 +1,7 @@
 /**
  * The levels series are grouped at, for encodings and hierarchy features. A level is either
  * inside one store (computed by the store's partition from its own rows) or spans stores
- * (aggregated once per build with one GROUP BY and read back by each partition).
+ * (summed once per build in one streaming pass over the sales and read back by each partition).
  */
 export const GROUP_LEVELS = [
   'total',
@@ -22,8 +22,6 @@ export interface LevelInfo {
   readonly scope: 'store' | 'chain';
   /** The enclosing level whose mean is the encoding's prior. */
   readonly parent: GroupLevel | null;
-  /** Finer chain levels whose totals add up to this one (the cheapest is used when built). */
-  readonly from: readonly GroupLevel[];
   readonly description: string;
 }
 
@@ -32,57 +30,49 @@ export const LEVELS: Readonly<Record<GroupLevel, LevelInfo>> = Object.freeze({
     level: 'total',
     scope: 'chain',
     parent: null,
-    from: ['region', 'category'],
     description: 'the whole chain',
   },
   region: {
     level: 'region',
     scope: 'chain',
     parent: 'total',
-    from: ['item_region'],
     description: 'the region',
   },
-  store: { level: 'store', scope: 'store', parent: 'region', from: [], description: 'the store' },
+  store: { level: 'store', scope: 'store', parent: 'region', description: 'the store' },
   category: {
     level: 'category',
     scope: 'chain',
     parent: 'total',
-    from: ['item'],
     description: 'the category',
   },
   department: {
     level: 'department',
     scope: 'chain',
     parent: 'category',
-    from: ['item'],
     description: 'the department',
   },
   item: {
     level: 'item',
     scope: 'chain',
     parent: 'department',
-    from: ['item_region'],
     description: 'the item across stores',
   },
   store_category: {
     level: 'store_category',
     scope: 'store',
     parent: 'store',
-    from: [],
     description: 'the category in the store',
   },
   store_department: {
     level: 'store_department',
     scope: 'store',
     parent: 'store_category',
-    from: [],
     description: 'the department in the store',
   },
   item_region: {
     level: 'item_region',
     scope: 'chain',
     parent: 'item',
-    from: [],
     description: 'the item across the stores of its region',
   },
 });

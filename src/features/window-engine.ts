@@ -203,14 +203,9 @@ export function windowStats(
   const pw = new Float64Array(w + 1);
   for (let k = 0; k <= w; k++) pw[k] = lambda ** k;
   const idx = (s: WindowStat) => spec.stats.indexOf(s);
-  const [kMean, kStd, kMin, kMax, kZero, kEwm] = (['mean', 'std', 'min', 'max', 'zero_share', 'ewm'] as const).map(idx) as [
-    number,
-    number,
-    number,
-    number,
-    number,
-    number,
-  ];
+  const [kMean, kStd, kMin, kMax, kZero, kEwm] = (
+    ['mean', 'std', 'min', 'max', 'zero_share', 'ewm'] as const
+  ).map(idx) as [number, number, number, number, number, number];
   const st = new WindowState(x, w, lambda, pw, kMin >= 0, kMax >= 0, kEwm >= 0);
   const minDays = Math.max(1, spec.minDays);
   let ev = 0;
@@ -235,7 +230,8 @@ export function windowStats(
       continue;
     }
     if (kMean >= 0) out[kMean]![o] = st.sum / n;
-    if (kStd >= 0) out[kStd]![o] = n < 2 ? Number.NaN : sampleStd(n, st.sum, st.sumSq, x, st.counted, J - w + 1, J);
+    if (kStd >= 0)
+      out[kStd]![o] = n < 2 ? Number.NaN : sampleStd(n, st.sum, st.sumSq, x, st.counted, J - w + 1, J);
     if (kMin >= 0) out[kMin]![o] = x[st.minQ[st.minH]!]!;
     if (kMax >= 0) out[kMax]![o] = x[st.maxQ[st.maxH]!]!;
     if (kZero >= 0) out[kZero]![o] = st.zeros / n;
