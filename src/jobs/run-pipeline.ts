@@ -180,11 +180,11 @@ async function executeLocked(ctx: RunnerContext, req: RunRequest, l: Locked): Pr
   if (!req.force && !resumable) {
     for (const s of sets) {
       const last = await lastCompletedFor(db, s, cutoff);
-      const snap = await stages.snapshotInputs(db, s, cutoff);
+      const current = await stages.snapshotInputs(db, s, cutoff);
       const now = inputs[s]!;
       const same = (x: SetInputs | undefined | null) =>
         !!x && x.definitionHash === now.definitionHash && x.dataFingerprint === now.dataFingerprint;
-      if (last && same(last.inputs[s]) && same(snap)) upToDate.add(s);
+      if (last && same(last.inputs[s]) && same(current)) upToDate.add(s);
     }
   }
   const base = {
