@@ -1,9 +1,10 @@
 import { randomBytes } from 'node:crypto';
+import { availableParallelism } from 'node:os';
 import { type BuildPlan, buildWindow, planFeatureSet, snapshotTableDdl } from '../build/build-plan.js';
 import { readPartition } from '../build/build-partition.js';
 import { computeSeriesFeatures } from '../build/compute-series.js';
 import { dataFingerprint } from '../build/fingerprint.js';
-import { stageGroupStatements } from '../build/group-stage.js';
+import { stageChainGroups } from '../build/chain-groups.js';
 import { seriesRows } from '../build/series-rows.js';
 import type { Config } from '../config/config.js';
 import { formatDay, parseDay } from '../core/days.js';
@@ -87,7 +88,12 @@ export async function checkRefresh(
   config: Config,
   setName: string,
   cutoff: string,
-  inputs: { definitionHash: string; dataFingerprint: string },
+  inputs: {
+    definitionHash: string;
+    dataFingerprint: string;
+    /** The parts of `dataFingerprint` (computed once by the run's planning). */
+    fingerprintParts: BuildPlan['fingerprintParts'];
+  },
 ): Promise<RefreshBasis | NoRefresh> {
   const set = resolveFeatureSet(config, setName);
   const def = set.definition;
@@ -126,10 +132,6 @@ export async function checkRefresh(
     };
   }
 
-  const current = await dataFingerprint((fn) => db.session(fn), C, buildWindow(set, C, P + 1).priceBoundary);
-  if (current.fingerprint !== inputs.dataFingerprint) {
-    throw new LarderError('DATA_CHANGED', `the data of ${setName} changed after the run started: run again`);
-  }
   return {
     setName,
     cutoff,
@@ -137,8 +139,8 @@ export async function checkRefresh(
     previousSnapshotId: Number(prev.snapshot_id),
     previousTable: prev.table_name,
     trainFrom: formatDay(from),
-    dataFingerprint: current.fingerprint,
-    fingerprintParts: current.parts,
+    dataFingerprint: inputs.dataFingerprint,
+    fingerprintParts: inputs.fingerprintParts,
   };
 }
 
@@ -170,9 +172,14 @@ export async function createRefreshPlan(db: Db, config: Config, basis: RefreshBa
   ).rows[0]!;
   await db.exec(snapshotTableDdl(delta, set));
   if (groupTable) {
-    await db.session(async (s) => {
-      for (const sql of stageGroupStatements(groupTable, w.chain, w.groupFrom, C)) await s.exec(sql);
-    });
+    await stageChainGroups(
+      db,
+      groupTable,
+      w.chain,
+      w.groupFrom,
+      C,
+      Math.min(db.parallelism, availableParallelism()),
+    );
   }
   const build: BuildPlan = {
     version: 1,

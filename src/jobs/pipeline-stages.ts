@@ -34,7 +34,7 @@ export function pipelineStages(kit: WorkKit, extra: { readonly audit?: PipelineS
       return {
         set,
         inputs: { definitionHash: fs.definitionHash, dataFingerprint: fp.fingerprint },
-        plan: null,
+        plan: { fingerprintParts: fp.parts },
       };
     },
     async snapshotInputs(db, set, cutoff) {

@@ -86,10 +86,16 @@ export async function fullBuild(env: StepEnv, kit: WorkKit): Promise<StepResult>
  * The incremental path: only the rows a new day can change are computed, by partition through the
  * work queue, then the previous snapshot is advanced in place (incremental-refresh.ts).
  */
-async function refresh(env: StepEnv, kit: WorkKit, basis: RefreshBasis): Promise<StepResult> {
+async function refresh(
+  env: StepEnv,
+  kit: WorkKit,
+  basis: RefreshBasis,
+  checkMs: number,
+): Promise<StepResult> {
   const set = env.set!;
   const inputs = env.state.plans.get(set)!.inputs;
   const t0 = performance.now();
+  let planMs = 0;
   const run = await runPartitioned(env, kit, {
     kind: REFRESH_PARTITION,
     jobKey: `refresh:${set}:${env.cutoff}:${inputs.definitionHash}:${inputs.dataFingerprint}:${basis.previousSnapshotId}`,
@@ -105,17 +111,23 @@ async function refresh(env: StepEnv, kit: WorkKit, basis: RefreshBasis): Promise
       );
     },
     async create() {
+      const tp = performance.now();
       const plan = await createRefreshPlan(env.db, env.config, basis);
+      planMs = performance.now() - tp;
       return { payload: plan, partitions: plan.build.partitions };
     },
   });
   const plan = run.payload as RefreshPlan;
+  const partitionsMs = performance.now() - t0 - planMs;
   try {
-    const r = await finishRefresh(env.db, plan, {
-      runId: env.run.runId,
-      jobId: run.jobId,
-      partitionsMs: Math.round(performance.now() - t0),
-    });
+    const tf = performance.now();
+    const timings = {
+      checkMs: Math.round(checkMs),
+      planMs: Math.round(planMs),
+      partitionsMs: Math.round(partitionsMs),
+    };
+    const r = await finishRefresh(env.db, plan, { runId: env.run.runId, jobId: run.jobId, ...timings });
+    const finishMs = Math.round(performance.now() - tf);
     return {
       status: 'succeeded',
       rows: r.rowCount,
@@ -127,6 +139,7 @@ async function refresh(env: StepEnv, kit: WorkKit, basis: RefreshBasis): Promise
         computedRows: r.computedRows,
         droppedRows: r.droppedRows,
         partitions: run.progress.total,
+        timings: { ...timings, finishMs },
       },
       message:
         `snapshot ${r.snapshotId} refreshed from ${plan.previousCutoff}: ${r.computedRows} rows computed, ` +
@@ -162,23 +175,30 @@ export function buildStep(kit: WorkKit): PipelineStep {
     async run(env) {
       const set = env.set!;
       const inputs = env.state.plans.get(set)!.inputs;
-      const snap = await getSnapshot(env.db, set, env.cutoff);
+      const current = await getSnapshot(env.db, set, env.cutoff);
       if (
         !env.settings.force &&
-        snap &&
-        snap.definitionHash === inputs.definitionHash &&
-        snap.dataFingerprint === inputs.dataFingerprint
+        current &&
+        current.definitionHash === inputs.definitionHash &&
+        current.dataFingerprint === inputs.dataFingerprint
       ) {
         return {
           status: 'succeeded',
-          rows: snap.rowCount,
-          details: { mode: 'existing', snapshotId: snap.snapshotId, table: snap.tableName },
-          message: `snapshot ${snap.snapshotId} was already built from these inputs`,
+          rows: current.rowCount,
+          details: { mode: 'existing', snapshotId: current.snapshotId, table: current.tableName },
+          message: `snapshot ${current.snapshotId} was already built from these inputs`,
         };
       }
       if (env.config.pipeline.incremental && !env.settings.force) {
-        const basis = await checkRefresh(env.db, env.config, set, env.cutoff, inputs);
-        if (canRefresh(basis)) return refresh(env, kit, basis);
+        const tc = performance.now();
+        const planned = env.state.plans.get(set)!.plan as {
+          fingerprintParts?: BuildPlan['fingerprintParts'];
+        } | null;
+        const basis = await checkRefresh(env.db, env.config, set, env.cutoff, {
+          ...inputs,
+          fingerprintParts: planned?.fingerprintParts ?? {},
+        });
+        if (canRefresh(basis)) return refresh(env, kit, basis, performance.now() - tc);
         env.reporter.info(`build ${set}: full build (${basis.reason})`, { set, reason: basis.reason });
       }
       return fullBuild(env, kit);
