@@ -2,6 +2,7 @@ import type { Command } from 'commander';
 import { findingsToJsonLines } from '../../checks/format-json.js';
 import { formatSummary } from '../../checks/format-summary.js';
 import { writeReport } from '../../checks/report/write-report.js';
+import { CHECK_NAMES } from '../../checks/registry.js';
 import { runChecks } from '../../checks/run-checks.js';
 import { UsageError } from '../../db/errors.js';
 import type { CliContext } from '../context.js';
@@ -23,7 +24,10 @@ export function register(program: Command, ctx: CliContext): void {
       'run the data-quality checks over the raw tables; exit 0 when nothing blocks, 1 when a finding blocks, 2 on a usage or config error',
     )
     .option('--cutoff <day>', 'consider data up to this day (YYYY-MM-DD); default: everything stored')
-    .option('--only <names>', 'comma-separated checks to run (default: every enabled check)')
+    .option(
+      '--only <names>',
+      `comma-separated checks to run (default: every enabled check): ${CHECK_NAMES.join(', ')}`,
+    )
     .option('--json', 'print one JSON object per finding on stdout (the summary goes to stderr)', false)
     .option('--report <file>', 'write a self-contained HTML report to this file')
     .option('--scheduled', 'judge as a scheduled refresh: stale data blocks', false)
