@@ -94,20 +94,20 @@ class TerminalReporter implements Reporter {
     if (this.#drawn) this.out.write('\r\x1b[2K');
     this.#drawn = false;
   }
-  #line(prefix: string, msg: string, fields?: Fields) {
+  // Fields are for log collectors; a person reads the message.
+  #line(prefix: string, msg: string) {
     this.#clear();
-    const extra = fields && Object.keys(fields).length ? `  ${formatFields(fields)}` : '';
-    this.out.write(`${prefix}${msg}${extra}\n`);
+    this.out.write(`${prefix}${msg}\n`);
     if (this.#bar) this.progress(this.#bar);
   }
-  info(msg: string, fields?: Fields) {
-    this.#line('', msg, fields);
+  info(msg: string) {
+    this.#line('', msg);
   }
-  warn(msg: string, fields?: Fields) {
-    this.#line('warning: ', msg, fields);
+  warn(msg: string) {
+    this.#line('warning: ', msg);
   }
-  error(msg: string, fields?: Fields) {
-    this.#line('error: ', msg, fields);
+  error(msg: string) {
+    this.#line('error: ', msg);
   }
   progress(state: ProgressState) {
     this.#bar = state;
@@ -115,7 +115,9 @@ class TerminalReporter implements Reporter {
     this.#drawn = true;
   }
   endProgress() {
-    if (this.#bar && this.#drawn) this.out.write('\n');
+    // The bar's last state stays on screen as a line of its own.
+    if (this.#bar)
+      this.out.write(`\r\x1b[2K${progressLine(this.#bar, Date.now(), this.out.columns ?? 100)}\n`);
     this.#bar = undefined;
     this.#drawn = false;
   }
@@ -165,32 +167,4 @@ class JsonReporter implements Reporter {
   endProgress() {
     this.#lastProgress = 0;
   }
-}
-
-function formatFields(fields: Fields): string {
-  return Object.entries(fields)
-    .map(([k, v]) => `${k}=${typeof v === 'string' ? v : JSON.stringify(v)}`)
-    .join(' ');
-}
-
-/**
- * Plain lines through `write` (the demo, embedding programs): events as text, progress only
- * when a step's partitions are all done.
- */
-export function lineReporter(write: (line: string) => void, indent = '  '): Reporter {
-  const line = (prefix: string) => (msg: string) => write(`${indent}${prefix}${msg}`);
-  return {
-    info: line(''),
-    warn: line(''),
-    error: line('error: '),
-    progress(p) {
-      if (p.total > 0 && p.done === p.total) {
-        const { rate } = progressFigures(p, Date.now());
-        write(
-          `${indent}${p.label}: ${p.done}/${p.total} partitions, ${compactNumber(p.rows)} rows, ${compactNumber(rate)} rows/s`,
-        );
-      }
-    },
-    endProgress() {},
-  };
 }

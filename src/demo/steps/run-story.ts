@@ -154,7 +154,6 @@ export const secondRunStep: DemoStep = {
   name: 'run (corrected)',
   async run(ctx) {
     const outcome = await demoRun(ctx);
-    ctx.out(`  => ${outcome.message}`);
     if (outcome.status !== 'succeeded') {
       throw new LarderError(
         'DEMO',
