@@ -168,3 +168,25 @@ class JsonReporter implements Reporter {
     this.#lastProgress = 0;
   }
 }
+
+/**
+ * Plain lines through `write` (the demo, embedding programs): events as text, progress only
+ * when a step's partitions are all done.
+ */
+export function lineReporter(write: (line: string) => void, indent = '  '): Reporter {
+  const line = (prefix: string) => (msg: string) => write(`${indent}${prefix}${msg}`);
+  return {
+    info: line(''),
+    warn: line(''),
+    error: line('error: '),
+    progress(p) {
+      if (p.total > 0 && p.done === p.total) {
+        const { rate } = progressFigures(p, Date.now());
+        write(
+          `${indent}${p.label}: ${p.done}/${p.total} partitions, ${compactNumber(p.rows)} rows, ${compactNumber(rate)} rows/s`,
+        );
+      }
+    },
+    endProgress() {},
+  };
+}

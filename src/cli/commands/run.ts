@@ -85,7 +85,8 @@ export function register(program: Command, ctx: CliContext): void {
               stop: stop.signal,
             },
           );
-          ctx.out(outcome.message);
+          // On a terminal the reporter already said it; a pipe or file gets the outcome on stdout.
+          if (!(process.stdout.isTTY && process.stderr.isTTY)) ctx.out(outcome.message);
           ctx.exitCode = exitCodeOf(outcome);
         } catch (err) {
           if (err instanceof RunBusyError) {
