@@ -2,7 +2,6 @@ import { createHash } from 'node:crypto';
 import { endianness } from 'node:os';
 import type { Config } from '../config/config.js';
 import { formatDay, parseDay } from '../core/days.js';
-import { readCopyBinary } from '../db/binary-copy.js';
 import { type Db, type DbSession, quoteIdent, safeIdent } from '../db/database.js';
 import { LarderError, UsageError } from '../db/errors.js';
 import { type CacheEntry, CacheUnavailableError, type FeatureCache, pushTo } from './feature-cache.js';
@@ -14,6 +13,7 @@ import {
   parseManifest,
   splitItems,
 } from './layout.js';
+import { drainable, readPredictRows } from './predict-rows.js';
 import { findSnapshot, type SnapshotEntry } from './snapshot-catalogue.js';
 
 export interface PublishOptions {
@@ -191,46 +191,52 @@ async function writeVersion(
   const cols = entry.columns.map((c) => quoteIdent(c.name)).join(', ');
   const copy = `COPY (SELECT series_id, day${F ? `, ${cols}` : ''} FROM ${quoteIdent(entry.tableName)}
     WHERE is_predict) TO STDOUT (FORMAT binary)`;
-  const types = ['int4', 'date', ...entry.columns.map(() => 'float8' as const)] as const;
   const where = `snapshot ${set} ${entry.cutoff} (table ${entry.tableName})`;
-  for await (const b of readCopyBinary(s.copyTo(copy), types, 16384)) {
-    const ids = b.columns[0] as Int32Array;
-    const days = b.columns[1] as Int32Array;
-    for (let r = 0; r < b.length; r++) {
-      const id = ids[r]!;
-      const h = days[r]! - firstDay;
-      if (h < 0 || h >= H) {
-        throw new LarderError(
-          'SNAPSHOT_INVALID',
-          `${where}: series ${id} has a prediction row for ${formatDay(days[r]!)}, outside ${formatDay(firstDay)} .. ${formatDay(firstDay + H - 1)}`,
-        );
+  const source = drainable(s.copyTo(copy));
+  try {
+    for await (const b of readPredictRows(source, F)) {
+      const ids = b.seriesIds;
+      const days = b.days;
+      for (let r = 0; r < b.length; r++) {
+        const id = ids[r]!;
+        const h = days[r]! - firstDay;
+        if (h < 0 || h >= H) {
+          throw new LarderError(
+            'SNAPSHOT_INVALID',
+            `${where}: series ${id} has a prediction row for ${formatDay(days[r]!)}, outside ${formatDay(firstDay)} .. ${formatDay(firstDay + H - 1)}`,
+          );
+        }
+        let m = open.get(id);
+        if (!m) {
+          m = { values: new Float32Array(H * F), seen: new Uint8Array(H), count: 0 };
+          open.set(id, m);
+        }
+        if (m.seen[h]) {
+          throw new LarderError(
+            'SNAPSHOT_INVALID',
+            `${where}: series ${id} has two prediction rows for ${formatDay(days[r]!)}`,
+          );
+        }
+        m.seen[h] = 1;
+        m.values.set(b.values.subarray(r * F, (r + 1) * F), h * F);
+        if (++m.count < H) continue;
+        open.delete(id);
+        const name = names.get(id);
+        if (!name)
+          throw new LarderError('SNAPSHOT_INVALID', `${where}: series ${id} is not in the series table`);
+        const key = layout.series(set, version, name.store, name.item);
+        const packed = LITTLE_ENDIAN_HOST ? Buffer.from(m.values.buffer) : packMatrix(m.values);
+        batch.push([key, packed]);
+        seriesKeys.push(key);
+        bytes += packed.byteLength;
+        pushTo(byStore, name.store, name.item);
+        if (batch.length >= WRITE_BATCH) await flush();
       }
-      let m = open.get(id);
-      if (!m) {
-        m = { values: new Float32Array(H * F), seen: new Uint8Array(H), count: 0 };
-        open.set(id, m);
-      }
-      if (m.seen[h]) {
-        throw new LarderError(
-          'SNAPSHOT_INVALID',
-          `${where}: series ${id} has two prediction rows for ${formatDay(days[r]!)}`,
-        );
-      }
-      m.seen[h] = 1;
-      for (let f = 0; f < F; f++) m.values[h * F + f] = (b.columns[f + 2] as Float64Array)[r]!;
-      if (++m.count < H) continue;
-      open.delete(id);
-      const name = names.get(id);
-      if (!name)
-        throw new LarderError('SNAPSHOT_INVALID', `${where}: series ${id} is not in the series table`);
-      const key = layout.series(set, version, name.store, name.item);
-      const packed = LITTLE_ENDIAN_HOST ? Buffer.from(m.values.buffer) : packMatrix(m.values);
-      batch.push([key, packed]);
-      seriesKeys.push(key);
-      bytes += packed.byteLength;
-      pushTo(byStore, name.store, name.item);
-      if (batch.length >= WRITE_BATCH) await flush();
     }
+  } catch (err) {
+    // The session runs more statements after this one (recording the failure): finish the COPY.
+    await source.drain();
+    throw err;
   }
   await flush();
   if (open.size > 0) {

@@ -170,6 +170,43 @@ describe('publishSnapshot to Redis', () => {
   });
 });
 
+describe('a bad row in the middle of the stream', () => {
+  it('fails the publish naming the row, records the failure on the same connection, keeps the pointer', async () => {
+    const { db, config } = env();
+    const before = await raw.get(layout.pointer('daily'));
+    const f = await createSnapshotFixture(db, {
+      cutoff: '2024-04-21',
+      seed: 14,
+      stores: 4,
+      itemsPerStore: 100,
+    });
+    const bad = f.series[0]!;
+    // Rewrite the table with one row of the first series moved past the horizon, placed first,
+    // so the publisher meets it with most of the COPY still to come.
+    const cols = ['series_id', 'day', 'origin', 'is_predict', 'label', ...f.columns].join(', ');
+    await db.exec(`CREATE TABLE moved AS SELECT * FROM ${f.tableName}; TRUNCATE ${f.tableName}`);
+    await db.query(
+      `INSERT INTO ${f.tableName} (${cols})
+       SELECT series_id, CASE WHEN series_id = $1 AND day = '2024-04-22' THEN day + 60 ELSE day END, origin,
+         is_predict, label, ${f.columns.join(', ')}
+       FROM moved ORDER BY (series_id = $1 AND day = '2024-04-22') DESC, series_id, day`,
+      [bad.id],
+    );
+    await db.exec('DROP TABLE moved');
+    await expect(publishSnapshot(db, cache, config, { set: 'daily', cutoff: '2024-04-21' })).rejects.toThrow(
+      `series ${bad.id} has a prediction row for 2024-06-21, outside 2024-04-22 .. 2024-05-19`,
+    );
+    expect(await raw.get(layout.pointer('daily'))).toBe(before);
+    const last = await db.query<{ status: string; message: string }>(
+      'SELECT status, message FROM publishes ORDER BY publish_id DESC LIMIT 1',
+    );
+    expect(last.rows[0]).toMatchObject({
+      status: 'failed',
+      message: expect.stringContaining('outside 2024-04-22'),
+    });
+  });
+});
+
 describe('reader over the published set', () => {
   let reader: Reader;
   beforeAll(async () => {
