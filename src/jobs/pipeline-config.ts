@@ -107,9 +107,16 @@ export const pipelineSectionSchema = z
           .int()
           .min(0)
           .default(0)
+          .describe('sales are fresh for cutoff C when the newest sales day is on or after C - maxLagDays'),
+        waitMinutes: z
+          .number()
+          .min(0)
+          .max(24 * 60)
+          .default(0)
           .describe(
-            'a run for cutoff C stops before the check while the newest sales day is before C - maxLagDays',
+            'while sales are not fresh, look in the watched folder again for this long before checking',
           ),
+        pollMinutes: z.number().min(0.01).max(60).default(5),
       })
       .strict()
       .prefault({}),

@@ -1,7 +1,15 @@
 import type { Config } from '../config/config.js';
 import type { Db } from '../db/database.js';
 import { UsageError } from '../db/errors.js';
-import type { PipelineStages, PipelineStep, PlannedSet, RunState, StepEnv } from './pipeline-step.js';
+import { day, formatDay } from '../core/days.js';
+import type {
+  LoadOutcome,
+  PipelineStages,
+  PipelineStep,
+  PlannedSet,
+  RunState,
+  StepEnv,
+} from './pipeline-step.js';
 import type { Reporter } from './progress.js';
 import { latestSalesDay, resolveCutoffSpec } from './resolve-cutoff.js';
 import { describeHolders, type HeldLocks, type LockHolder, runLockKey, withRunLocks } from './run-lock.js';
@@ -122,12 +130,13 @@ const label = (name: string, set: string | null) => (set ? `${name} ${set}` : na
  */
 export async function runPipeline(ctx: RunnerContext, req: RunRequest): Promise<RunOutcome> {
   const { db, config, reporter } = ctx;
-  const load = await ctx.stages.loadWatched(db, config, reporter);
+  let load = await ctx.stages.loadWatched(db, config, reporter);
   const cutoff = resolveCutoffSpec(req.cutoff, {
     now: req.now ?? new Date(),
     timeZone: req.timeZone,
     latestSalesDay: req.cutoff === 'latest' ? await latestSalesDay(db) : null,
   });
+  if (!load?.error) load = await awaitFreshSales(ctx, cutoff, load, req.stop);
   const sets = runSets(config, ctx.stages.setNames(config), req.sets);
   const keys = sets.map((s) => runLockKey(db.schema, s, cutoff));
   const describe = async (holders: readonly LockHolder[]) => {
@@ -150,6 +159,54 @@ export async function runPipeline(ctx: RunnerContext, req: RunRequest): Promise<
     },
     (held) => executeLocked(ctx, req, { cutoff, sets, load, held }),
   );
+}
+
+/**
+ * Late files: while the newest sales day is older than the cutoff allows
+ * (`freshness.maxLagDays`), looks in the watched folder again every `pollMinutes`, for at most
+ * `waitMinutes`. Then the run goes on either way; the check judges what arrived.
+ */
+async function awaitFreshSales(
+  ctx: RunnerContext,
+  cutoff: string,
+  first: LoadOutcome | null,
+  stop: AbortSignal | undefined,
+): Promise<LoadOutcome | null> {
+  const f = ctx.config.pipeline.freshness;
+  if (f.waitMinutes <= 0 || !ctx.config.pipeline.watch) return first;
+  const expected = formatDay(day(cutoff) - f.maxLagDays);
+  const deadline = Date.now() + f.waitMinutes * 60_000;
+  let load = first;
+  for (;;) {
+    const newest = await latestSalesDay(ctx.db);
+    if ((newest !== null && newest >= expected) || Date.now() >= deadline || stop?.aborted) return load;
+    ctx.reporter.info(
+      `waiting for sales through ${expected} (newest ${newest ?? 'none'}); looking again in ${f.pollMinutes} min`,
+      { expected, newest },
+    );
+    await new Promise<void>((resolve) => {
+      const t = setTimeout(resolve, Math.min(f.pollMinutes * 60_000, Math.max(0, deadline - Date.now())));
+      stop?.addEventListener(
+        'abort',
+        () => {
+          clearTimeout(t);
+          resolve();
+        },
+        { once: true },
+      );
+    });
+    const more = await ctx.stages.loadWatched(ctx.db, ctx.config, ctx.reporter);
+    if (more) {
+      load = {
+        files: [...(load?.files ?? []), ...more.files],
+        rows: (load?.rows ?? 0) + more.rows,
+        startedAt: load?.startedAt ?? more.startedAt,
+        finishedAt: more.finishedAt,
+        ...(more.error ? { error: more.error } : {}),
+      };
+      if (more.error) return load;
+    }
+  }
 }
 
 interface Locked {
