@@ -24,11 +24,12 @@ import { DuckDBDataChunk, DuckDBInstance, INTEGER } from '@duckdb/node-api';
 import examples from '../examples/larder.config.js';
 import { buildSnapshot } from '../src/build/build-snapshot.js';
 import { salesCopySql } from '../src/build/partition-input.js';
+import { SnapshotEncoder } from '../src/build/snapshot-encoder.js';
 import { dayLiteral, quoteLiteral } from '../src/build/sql-text.js';
 import { parseConfig } from '../src/config/config.js';
 import { readEnv } from '../src/config/env.js';
 import { formatDay, parseDay } from '../src/core/days.js';
-import { CopyBinaryWriter, readCopyBinary } from '../src/db/binary-copy.js';
+import { readCopyBinary } from '../src/db/binary-copy.js';
 import { type Db, quoteIdent } from '../src/db/database.js';
 import { openDatabase } from '../src/db/open.js';
 import { resolveFeatureSet } from '../src/features/feature-set.js';
@@ -120,20 +121,30 @@ async function ioFloor(
       await s.exec(
         `DROP TABLE IF EXISTS ${table}; CREATE TABLE ${table} (series_id int4, day date, origin date, is_predict bool, label int4, ${cols})`,
       );
-      const rows = rowsPer.get(store) ?? 0;
+      const total = rowsPer.get(store) ?? 0;
+      // The build's own encoder, so the floor pays the same per-cell cost the build does.
       async function* chunks() {
-        const w = new CopyBinaryWriter();
-        for (let r = 0; r < rows; r++) {
-          w.row(5 + features);
-          w.int4(r >> 10);
-          w.date(cutoff - (r & 1023));
-          w.null();
-          w.bool(false);
-          w.int4(r & 7);
-          for (let f = 0; f < features; f++) w.float8((r + f) * 0.25);
-          if ((r & 1023) === 0) yield* w.take();
+        const enc = new SnapshotEncoder(features);
+        const block = 1024;
+        const cols = Array.from({ length: features }, (_, f) =>
+          Float64Array.from({ length: block }, (_, r) => (r + f) * 0.25),
+        );
+        const day = new Int32Array(block).map((_, r) => cutoff - r);
+        const rows = {
+          n: 0,
+          day,
+          anchor: day,
+          limit: day,
+          origin: null,
+          isPredict: new Uint8Array(block),
+          label: new Float64Array(block).fill(3),
+          trainRows: 0,
+        };
+        for (let r0 = 0; r0 < total; r0 += block) {
+          enc.series(r0 >> 10, { ...rows, n: Math.min(block, total - r0) }, cols);
+          yield* enc.take();
         }
-        yield* w.end();
+        yield* enc.end();
       }
       await s.copyFrom(`COPY ${table} FROM STDIN (FORMAT binary)`, chunks());
       void n;
@@ -330,9 +341,11 @@ export async function main(argv: string[]): Promise<void> {
     // The standard set.
     const std = resolveFeatureSet(config, 'standard');
     const rss0 = process.memoryUsage().rss;
+    const cpu0 = process.cpuUsage();
     const t0 = performance.now();
     const info = await buildSnapshot(db, config, { set: 'standard', cutoff: formatDay(cutoff) });
     const buildMs = performance.now() - t0;
+    const buildCpu = process.cpuUsage(cpu0);
     const peakRss = process.resourceUsage().maxRSS * 1024;
     const rowsPer = new Map<string, number>();
     for (const p of parts) rowsPer.set(p, 0);
@@ -345,9 +358,11 @@ export async function main(argv: string[]): Promise<void> {
     // The standard set masks stock-outs, so its build reads the whole history.
     const readFromStd = std.stockout ? null : parseDay(info.trainFrom)!;
     const refs = new Set(o.refs.split(','));
+    const cpu1 = process.cpuUsage();
     const floorMs = refs.has('a')
       ? await ioFloor(db, parts, rowsPer, std.columns.length, readFromStd, cutoff, limit)
       : Number.NaN;
+    const floorCpu = process.cpuUsage(cpu1);
 
     // The window-only set and its two references.
     const def = std.definition;
@@ -388,10 +403,12 @@ export async function main(argv: string[]): Promise<void> {
         seconds: buildMs / 1000,
         rowsPerSecond: info.rowCount / (buildMs / 1000),
         peakRssMB: peakRss / 2 ** 20,
+        nodeCpuSeconds: (buildCpu.user + buildCpu.system) / 1e6,
         rssBeforeMB: rss0 / 2 ** 20,
         timings: info.timings,
       },
       ioFloorSeconds: floorMs / 1000,
+      ioFloorNodeCpuSeconds: (floorCpu.user + floorCpu.system) / 1e6,
       windows: { features: winfo.columns.length, rows: winfo.rowCount, seconds: windowsMs / 1000 },
       postgresStatement: { seconds: pgRef.ms / 1000, rows: pgRef.rows },
       duckdb: { seconds: duck.ms / 1000, streamSeconds: duck.streamMs / 1000, rows: duck.rows },
@@ -406,6 +423,9 @@ export async function main(argv: string[]): Promise<void> {
     );
     log(
       `  (a) I/O floor  ${secs(floorMs)} s  (COPY out of the input rows + COPY in of ${info.rowCount.toLocaleString('en')} rows of the same shape)`,
+    );
+    log(
+      `  Node CPU       build ${figures.standard.nodeCpuSeconds.toFixed(2)} s, floor ${figures.ioFloorNodeCpuSeconds.toFixed(2)} s`,
     );
     log(
       `  windows only   ${secs(windowsMs)} s  ${winfo.rowCount.toLocaleString('en')} rows x ${winfo.columns.length} features`,

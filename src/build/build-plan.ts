@@ -189,13 +189,7 @@ export async function planBuild(
         dataFingerprint((fn) => db.session(fn), cutoff, w.priceBoundary),
       ),
       groupTable
-        ? timed(
-            'groupsMs',
-            (async () => {
-              await stageChainGroups(db, groupTable, w.chain, w.groupFrom, cutoff, concurrency);
-              await db.exec(`ANALYZE ${quoteIdent(groupTable)}`);
-            })(),
-          )
+        ? timed('groupsMs', stageChainGroups(db, groupTable, w.chain, w.groupFrom, cutoff, concurrency))
         : Promise.resolve(),
     ]);
     const plan: BuildPlan = {

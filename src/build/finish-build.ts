@@ -112,9 +112,8 @@ export async function finishBuild(
     ]);
     if (plan.groupTable) await tx.exec(`DROP TABLE IF EXISTS ${quoteIdent(plan.groupTable)}`);
   });
-  // Statistics of the key columns only: readers filter and join on them, and a sample of every
-  // feature column would cost more than the swap itself.
-  await db.exec(`ANALYZE ${quoteIdent(plan.stagingTable)} (series_id, day, origin, is_predict)`);
+  // No ANALYZE here: autovacuum analyses the new table after its inserts, and sampling it now
+  // would add to every build for readers that scan it whole anyway.
   await dropSuperseded(db, plan);
   const info = await getSnapshot(db, plan.set, plan.cutoff);
   if (!info)
