@@ -9,7 +9,7 @@ import type { ResolvedFeatureSet } from '../features/feature-set.js';
 import type { GroupLevel } from '../features/group-levels.js';
 import { stockoutMask } from '../features/stockout-mask.js';
 import { type BuildPlan, planFeatureSet } from './build-plan.js';
-import { computeSeriesFeatures } from './compute-series.js';
+import { computeSeriesFeatures, featureScratch } from './compute-series.js';
 import { readStagedGroups } from './group-stage.js';
 import {
   type PartitionSeries,
@@ -153,6 +153,10 @@ async function* snapshotRows(
   };
   const F = set.columns.length;
   const w = new SnapshotEncoder(F);
+  const maxRows =
+    set.shape.horizon +
+    (layout.mode === 'shift' ? C - layout.from + 1 : layout.origins.length * set.shape.horizon);
+  const scratch = featureScratch(set, maxRows);
   for (const x of data.series) {
     const t0 = performance.now();
     const rows = seriesRows(layout, data.base, x.units);
@@ -168,7 +172,7 @@ async function* snapshotRows(
       keys: x.keys,
       itemId: x.hierarchy.itemId,
     };
-    const cols = computeSeriesFeatures(set, input, data.env);
+    const cols = computeSeriesFeatures(set, input, data.env, scratch);
     w.series(x.seriesId, rows, cols);
     counts.rows += rows.n;
     counts.train += rows.trainRows;

@@ -4,6 +4,7 @@ import type { DbSession } from '../db/database.js';
 import type { CalendarEvent } from '../features/calendar.js';
 import type { GroupSeries, ItemPrices } from '../features/family.js';
 import { type GroupLevel, groupKeys, type SeriesHierarchy } from '../features/group-levels.js';
+import { priceTicks } from '../features/prices.js';
 import { dayLiteral, quoteLiteral } from './sql-text.js';
 
 /** One series of a partition: its hierarchy and dense daily units from the partition's base. */
@@ -151,7 +152,7 @@ export function storeGroups(
 
 /**
  * Weekly prices of the store's items (those with a series in the store) up to the price
- * boundary, plus per department and week the count of items at each price.
+ * boundary, plus per department and week the count of items at each price (in ten-thousandths).
  */
 export async function readPartitionPrices(
   s: DbSession,
@@ -204,7 +205,8 @@ export async function readPartitionPrices(
         counts = new Map();
         byWeek.set(wk[r]!, counts);
       }
-      counts.set(pr[r]!, (counts.get(pr[r]!) ?? 0) + 1);
+      const tick = priceTicks(pr[r]!);
+      counts.set(tick, (counts.get(tick) ?? 0) + 1);
     }
   }
   flush();

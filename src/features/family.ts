@@ -116,7 +116,7 @@ export interface PartitionEnv {
   readonly anchorHi: number;
   readonly calendar: CalendarTable | null;
   readonly prices: ReadonlyMap<string, ItemPrices> | null;
-  /** Per department and week: price -> number of the store's items at that price. */
+  /** Per department and week: price in ten-thousandths -> number of the store's items at it. */
   readonly deptPrices: ReadonlyMap<string, ReadonlyMap<number, ReadonlyMap<number, number>>> | null;
   /** Per department and week: the mean price of the store's items. */
   readonly deptMeans: ReadonlyMap<string, ReadonlyMap<number, number>> | null;

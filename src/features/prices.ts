@@ -44,6 +44,11 @@ export const pricesParamsSchema = z
   .strict();
 export type PricesParams = z.infer<typeof pricesParamsSchema>;
 
+/** A price in ten-thousandths: exact for the 4 decimals prices carry (DESIGN.md data contracts). */
+export function priceTicks(price: number): number {
+  return Math.round(price * 10000);
+}
+
 /** First day of the retail week holding `day`, weeks starting on `weekStart` (0 = Sunday). */
 export function weekStartOf(day: number, weekStart: number): number {
   const dow = isoWeekday(day) % 7;
@@ -87,9 +92,15 @@ export function priceRowStats(
   // Welford: prices are decimals, so running sums of squares would cancel for steady prices.
   let mean = 0;
   let m2 = 0;
+  // Keys in ten-thousandths (prices have at most 4 decimals): small integers hash fast.
   const seen = new Set<number>();
   let lo4 = 0;
   let lo52 = 0;
+  // Prices carry at most 4 decimals: sums of ten-thousandths are exact integers, so the
+  // trailing means slide in O(1) without drift.
+  const ticks = priceTicks;
+  let sum4 = 0;
+  let sum52 = 0;
   for (let i = 0; i < n; i++) {
     const p = prices[i]!;
     const wk = weeks[i]!;
@@ -99,7 +110,8 @@ export function priceRowStats(
     const d = p - mean;
     mean += d / (i + 1);
     m2 += d * (p - mean);
-    seen.add(p);
+    const tp = ticks(p);
+    seen.add(tp);
     v.price_max[i] = max;
     v.price_min[i] = min;
     v.price_mean[i] = mean;
@@ -107,22 +119,17 @@ export function priceRowStats(
     v.price_rel_max[i] = p / max;
     v.price_distinct[i] = seen.size;
     v.price_momentum_1w[i] = i > 0 && weeks[i - 1] === wk - 7 ? p / prices[i - 1]! : Number.NaN;
-    while (weeks[lo4]! < wk - 21) lo4++;
-    while (weeks[lo52]! < wk - 357) lo52++;
-    v.price_momentum_4w[i] = p / meanOf(prices, lo4, i);
-    v.price_momentum_52w[i] = p / meanOf(prices, lo52, i);
+    sum4 += tp;
+    sum52 += tp;
+    while (weeks[lo4]! < wk - 21) sum4 -= ticks(prices[lo4++]!);
+    while (weeks[lo52]! < wk - 357) sum52 -= ticks(prices[lo52++]!);
+    v.price_momentum_4w[i] = p / (sum4 / 10000 / (i - lo4 + 1));
+    v.price_momentum_52w[i] = p / (sum52 / 10000 / (i - lo52 + 1));
     const atWeek = dept?.get(wk);
-    v.dept_same_price[i] = atWeek ? (atWeek.get(p) ?? 0) : Number.NaN;
+    v.dept_same_price[i] = atWeek ? (atWeek.get(tp) ?? 0) : Number.NaN;
     v.price_rel_dept[i] = atWeek ? p / deptMean(wk) : Number.NaN;
   }
   return { values: new Map(Object.entries(v) as Array<[PriceFeature, Float64Array]>) };
-}
-
-// Windows of at most 52 rows: summing them directly is cheap and carries no running-sum drift.
-function meanOf(prices: Float64Array, lo: number, hi: number): number {
-  let s = 0;
-  for (let j = lo; j <= hi; j++) s += prices[j]!;
-  return s / (hi - lo + 1);
 }
 
 /** Mean price of each department's items per week, from the price counts. */
@@ -135,11 +142,11 @@ export function departmentMeans(
     for (const [week, counts] of byWeek) {
       let s = 0;
       let c = 0;
-      for (const [p, k] of counts) {
-        s += p * k;
+      for (const [t, k] of counts) {
+        s += t * k;
         c += k;
       }
-      means.set(week, s / c);
+      means.set(week, s / c / 10000);
     }
     out.set(dept, means);
   }

@@ -30,6 +30,28 @@ export interface WindowSpec {
 // Beyond this, n * sum of squares is no longer an exact double and the std is taken in two passes.
 const EXACT = 2 ** 53;
 
+/** Growable scratch arrays by slot, so a build's many window passes allocate almost nothing. */
+const scratch = {
+  f: [] as Float64Array[],
+  i: [] as Int32Array[],
+  u: [] as Uint8Array[],
+  f64(slot: number, n: number): Float64Array {
+    let a = this.f[slot];
+    if (!a || a.length < n) this.f[slot] = a = new Float64Array(Math.max(n, 2 * (a?.length ?? 0)));
+    return a.subarray(0, n);
+  },
+  i32(slot: number, n: number): Int32Array {
+    let a = this.i[slot];
+    if (!a || a.length < n) this.i[slot] = a = new Int32Array(Math.max(n, 2 * (a?.length ?? 0)));
+    return a.subarray(0, n);
+  },
+  u8(slot: number, n: number): Uint8Array {
+    let a = this.u[slot];
+    if (!a || a.length < n) this.u[slot] = a = new Uint8Array(Math.max(n, 2 * (a?.length ?? 0)));
+    return a.subarray(0, n);
+  },
+};
+
 /**
  * The running state of one window over a padded array `x` (index j = day - origin): counts and
  * exact sums, monotonic deques of indices for min and max, and the two-stack queue of the
@@ -66,11 +88,12 @@ class WindowState {
     readonly wantMax: boolean,
     readonly wantEwm: boolean,
   ) {
-    this.minQ = new Int32Array(w);
-    this.maxQ = new Int32Array(w);
-    this.fA = new Float64Array(x.length);
-    this.fB = new Float64Array(x.length);
-    this.counted = new Uint8Array(x.length);
+    // Scratch reused across calls (the engine is synchronous): every slot is written before read.
+    this.minQ = scratch.i32(0, w);
+    this.maxQ = scratch.i32(1, w);
+    this.fA = scratch.f64(1, x.length);
+    this.fB = scratch.f64(2, x.length);
+    this.counted = scratch.u8(0, x.length);
   }
 
   reset(): void {
@@ -191,8 +214,8 @@ export function windowStats(
   // A padded copy over [eLo - w + 1, eHi]: no bounds checks inside the loop.
   const origin = eLo - w + 1;
   const span = eHi - origin + 1;
-  const x = new Float64Array(span).fill(Number.NaN);
-  const mf = maskFrom ? new Int32Array(span).fill(2147483647) : null;
+  const x = scratch.f64(0, span).fill(Number.NaN);
+  const mf = maskFrom ? scratch.i32(2, span).fill(2147483647) : null;
   const lo = Math.max(0, base - origin);
   const hi = Math.min(span, base + values.length - origin);
   for (let j = lo; j < hi; j++) {
