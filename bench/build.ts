@@ -25,7 +25,7 @@ import examples from '../examples/larder.config.js';
 import { buildSnapshot } from '../src/build/build-snapshot.js';
 import { salesCopySql } from '../src/build/partition-input.js';
 import { SnapshotEncoder } from '../src/build/snapshot-encoder.js';
-import { dayLiteral, quoteLiteral } from '../src/build/sql-text.js';
+import { dayLiteral } from '../src/build/sql-text.js';
 import { parseConfig } from '../src/config/config.js';
 import { readEnv } from '../src/config/env.js';
 import { formatDay, parseDay } from '../src/core/days.js';

@@ -118,7 +118,7 @@ export function buildWindow(set: ResolvedFeatureSet, cutoff: number, from: numbe
   };
 }
 
-/** A staging table name: snap_<set>_<yyyymmdd>_<random>, at most 59 characters (suffixes fit in 63). */
+/** A staging table name: feat_<set>_<yyyymmdd>_<random>, at most 59 characters (suffixes fit in 63). */
 function stagingName(set: string, cutoff: number): string {
   const ymd = formatDay(cutoff).replaceAll('-', '');
   const rnd = randomBytes(6)
@@ -126,7 +126,7 @@ function stagingName(set: string, cutoff: number): string {
     .toLowerCase()
     .replace(/[^a-z0-9]/g, '0')
     .slice(0, 6);
-  return safeIdent(`snap_${set.slice(0, 38)}_${ymd}_${rnd}`, 'snapshot table');
+  return safeIdent(`feat_${set.slice(0, 38)}_${ymd}_${rnd}`, 'snapshot table');
 }
 
 /** DDL of a snapshot table for a set's columns (DESIGN.md / docs/contracts.md layout). */

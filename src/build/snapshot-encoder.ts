@@ -72,7 +72,7 @@ export class SnapshotEncoder {
       }
       for (let c = 0; c < F; c++) {
         const x = cols[c]![r]!;
-        if (x !== x) {
+        if (Number.isNaN(x)) {
           v.setInt32(p, -1);
           p += 4;
         } else {

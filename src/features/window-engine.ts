@@ -109,7 +109,7 @@ class WindowState {
   /** Appends day j; it counts when `visible` (a value that the mask does not hide). */
   add(j: number, visible: boolean): void {
     const v = this.x[j]!;
-    const valid = visible && v === v;
+    const valid = visible && !Number.isNaN(v);
     this.counted[j] = valid ? 1 : 0;
     const w = this.w;
     if (valid) {
