@@ -2,6 +2,8 @@ import Fastify, { type FastifyInstance } from 'fastify';
 import { z } from 'zod';
 import type { Config } from '../config/config.js';
 import { ConfigError, LarderError } from '../db/errors.js';
+import { packMatrix } from '../publish/layout.js';
+import { NotFoundError } from '../publish/snapshot-catalogue.js';
 import { createMetrics, type ServeMetrics } from './metrics.js';
 import { featureReadJson } from './read-json.js';
 import type { Reader } from './reader.js';
@@ -25,6 +27,7 @@ export const featureQuerySchema = z.strictObject({
   day: day.optional(),
 });
 export type FeatureQuery = z.infer<typeof featureQuerySchema>;
+export const vectorQuerySchema = z.strictObject({ item: id('item'), store: id('store') });
 export const batchBodySchema = z.strictObject({
   series: z.array(z.strictObject({ item: id('item'), store: id('store'), day: day.optional() })).min(1),
   /** `error`: an unknown series fails the batch (404); `null`: its result is null. */
@@ -74,6 +77,7 @@ function httpError(err: unknown): { status: number; code: string; message: strin
  *   GET  /metrics                        Prometheus text
  *   GET  /v1/sets/:set                   what the set serves (version, cutoff, columns)
  *   GET  /v1/sets/:set/features?item=&store=[&day=]
+ *   GET  /v1/sets/:set/vector?item=&store=   the packed H x F matrix (application/octet-stream)
  *   POST /v1/sets/:set/features/batch    { series: [{ item, store, day? }], unknown? }
  */
 export function buildServer(opts: ServerOptions): FastifyInstance {
@@ -135,6 +139,28 @@ export function buildServer(opts: ServerOptions): FastifyInstance {
     const q = featureQuerySchema.parse(req.query);
     const read = await reader.get({ set, item: q.item, store: q.store, day: q.day });
     return reply.type('application/json; charset=utf-8').send(featureReadJson(read));
+  });
+  // The whole H x F matrix as packed little-endian Float32 (the cache's own bytes): for clients
+  // that want every day and can skip JSON. Columns and days come from GET /v1/sets/:set.
+  app.get('/v1/sets/:set/vector', async (req, reply) => {
+    const { set } = setParamsSchema.parse(req.params);
+    const q = vectorQuerySchema.parse(req.query);
+    const v = await reader.getVectors(set, [{ item: q.item, store: q.store }]);
+    const source = v.sources[0];
+    if (!source) {
+      throw new NotFoundError(
+        'UNKNOWN_SERIES',
+        `set '${set}' has no series item '${q.item}' at store '${q.store}'`,
+      );
+    }
+    return reply
+      .type('application/octet-stream')
+      .header('x-larder-version', String(v.version))
+      .header('x-larder-cutoff', v.cutoff)
+      .header('x-larder-first-day', v.firstDay)
+      .header('x-larder-shape', `${v.horizon}x${v.columns.length}`)
+      .header('x-larder-source', source)
+      .send(packMatrix(v.values));
   });
   app.post('/v1/sets/:set/features/batch', async (req, reply) => {
     const { set } = setParamsSchema.parse(req.params);

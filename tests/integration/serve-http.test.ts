@@ -136,6 +136,32 @@ describe('reads', () => {
     expect(batch.body.results).toHaveLength(5);
   });
 
+  it('serves the packed matrix of a series, equal to the named read', async () => {
+    const s = fx.series[4]!;
+    const res = await fetch(`${base}/v1/sets/daily/vector${q({ item: s.item, store: s.store })}`, {
+      headers: { authorization: `Bearer ${TOKEN}` },
+    });
+    expect(res.status).toBe(200);
+    expect(res.headers.get('content-type')).toBe('application/octet-stream');
+    expect(res.headers.get('x-larder-shape')).toBe(`28x${fx.columns.length}`);
+    expect(res.headers.get('x-larder-first-day')).toBe('2024-08-05');
+    expect(res.headers.get('x-larder-source')).toBe('cache');
+    const bytes = new Uint8Array(await res.arrayBuffer());
+    expect(bytes.byteLength).toBe(28 * fx.columns.length * 4);
+    const dv = new DataView(bytes.buffer);
+    const named = await call(`/v1/sets/daily/features${q({ item: s.item, store: s.store })}`);
+    const rows = named.body.rows as { features: Record<string, number | null> }[];
+    rows.forEach((row, h) => {
+      fx.columns.forEach((c, f) => {
+        const x = dv.getFloat32((h * fx.columns.length + f) * 4, true);
+        expect(Number.isNaN(x) ? null : x).toBe(row.features[c]);
+      });
+    });
+    const unknown = await call(`/v1/sets/daily/vector${q({ item: 'GHOST-5', store: 'ST-001' })}`);
+    expect(unknown.status).toBe(404);
+    expect(unknown.body.message).toMatch(/no series item 'GHOST-5' at store 'ST-001'/);
+  });
+
   it('exposes Prometheus metrics behind auth', async () => {
     const m = await call('/metrics');
     expect(m.status).toBe(200);
