@@ -267,6 +267,7 @@ export function resolveFeatureSet(
   config: {
     readonly sets: readonly FeatureSetDefinition[];
     readonly calendar: { readonly weekStartsOn: string };
+    readonly checks?: unknown;
   },
   name: string,
 ): ResolvedFeatureSet {
@@ -277,7 +278,19 @@ export function resolveFeatureSet(
       `no feature set named '${name}' in the config (${known.length ? `known: ${known.join(', ')}` : 'no sets are configured'})`,
     );
   }
-  return compile(def, config.calendar.weekStartsOn, false);
+  // `stockoutMask: true` takes the stock-out check's own parameters, so the mask hides exactly
+  // the runs the check reports; they are written into the definition (and so into its hash).
+  const resolved =
+    def.stockoutMask === true ? { ...def, stockoutMask: checkStockoutParams(config.checks) } : def;
+  return compile(resolved, config.calendar.weekStartsOn, false);
+}
+
+/** The stock-out rule's parameters as configured for the `stockout-zeros` check, else the defaults. */
+function checkStockoutParams(checks: unknown): StockoutParams {
+  const c = (checks as Record<string, Record<string, unknown> | undefined> | undefined)?.['stockout-zeros'];
+  const num = (k: keyof StockoutParams) =>
+    typeof c?.[k] === 'number' ? (c[k] as number) : DEFAULT_STOCKOUT_PARAMS[k];
+  return { alpha: num('alpha'), lookback: num('lookback'), minHistory: num('minHistory') };
 }
 
 /** Validates one set outside a config file (tests, the API); errors name the key. */

@@ -144,6 +144,19 @@ describe('definition hash', () => {
     expect(new Set([a.definitionHash, b.definitionHash, c.definitionHash]).size).toBe(3);
   });
 
+  test("stockoutMask: true takes the stock-out check's parameters, and they enter the hash", () => {
+    const set = { name: 'm', horizon: 7, stockoutMask: true, families: { lags: { days: [7] } } };
+    const plain = resolveFeatureSet(parseConfig({ sets: [set] }, 'test'), 'm');
+    const tuned = resolveFeatureSet(
+      parseConfig({ sets: [set], checks: { 'stockout-zeros': { alpha: 1e-4 } } }, 'test'),
+      'm',
+    );
+    expect(plain.stockout).toEqual({ alpha: 1e-6, lookback: 56, minHistory: 14 });
+    expect(tuned.stockout).toEqual({ alpha: 1e-4, lookback: 56, minHistory: 14 });
+    expect(tuned.definition.stockoutMask).toEqual(tuned.stockout);
+    expect(tuned.definitionHash).not.toBe(plain.definitionHash);
+  });
+
   test('columns come in family order with their declared boundaries', () => {
     const s = resolve({
       name: 'a',
