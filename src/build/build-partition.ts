@@ -58,7 +58,7 @@ export interface PartitionData {
   readonly reads: Record<string, number>;
 }
 
-export /**
+/**
  * Reads one partition's inputs for a plan: its series with dense units, group totals, prices and
  * calendar, ready for `computeSeriesFeatures` (the build and the job runner's refresh use it).
  */
