@@ -2,6 +2,25 @@
 export { defineConfig, loadConfig, type Config, type ConfigInput } from './config/config.js';
 export { openDatabase } from './db/open.js';
 export type { Db, DbSession } from './db/database.js';
+export { buildSnapshot, type SnapshotBuildOptions } from './build/build-snapshot.js';
+export { planBuild, type BuildPlan, type BuildRequest } from './build/build-plan.js';
+export { buildPartition, type PartitionResult } from './build/build-partition.js';
+export { abortBuild, finishBuild } from './build/finish-build.js';
+export {
+  getSnapshot,
+  listSnapshots,
+  withSnapshot,
+  type SnapshotColumn,
+  type SnapshotInfo,
+} from './build/snapshot-catalogue.js';
+export { auditSnapshot, type AuditOptions, type AuditReport } from './build/leak-audit.js';
+export {
+  parseFeatureSet,
+  resolveFeatureSet,
+  type FeatureSetDefinition,
+  type FeatureSetInput,
+  type ResolvedFeatureSet,
+} from './features/feature-set.js';
 export { createReader, type Reader, type ReaderOptions } from './serve/reader.js';
 export type { FeatureRead, FeatureRow, ReadRequest, SeriesBatch, SetInfo } from './serve/read-types.js';
 export { publishSnapshot, type PublishOptions, type PublishResult } from './publish/publish-snapshot.js';
