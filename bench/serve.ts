@@ -235,6 +235,10 @@ export async function main(argv: string[]): Promise<void> {
     const warm = await fetch(`${base}${path(all[0]!)}`, { headers: auth });
     if (!warm.ok) throw new Error(`warm-up read failed: ${warm.status} ${await warm.text()}`);
     /** The server's latency histogram for the read route: cumulative counts by upper bound. */
+    const cpuSeconds = async () => {
+      const text = await (await fetch(`${base}/metrics`, { headers: auth })).text();
+      return Number(/^larder_process_cpu_seconds_total (\S+)$/m.exec(text)?.[1]);
+    };
     const histogram = async () => {
       const text = await (await fetch(`${base}/metrics`, { headers: auth })).text();
       return [
@@ -250,6 +254,7 @@ export async function main(argv: string[]): Promise<void> {
       const pathsFile = join(tmp, 'paths.txt');
       writeFileSync(pathsFile, paths.join('\n'));
       const before = await histogram();
+      const cpu0 = await cpuSeconds();
       const args = [
         '--import',
         'tsx',
@@ -271,6 +276,7 @@ export async function main(argv: string[]): Promise<void> {
         number
       >;
       const after = await histogram();
+      const cpuPerRequest = ((await cpuSeconds()) - cpu0) / Math.max(1, Number(load.requests));
       const counts = after.map(([le, c], k) => [le, c - (before[k]?.[1] ?? 0)] as const);
       const total = counts.at(-1)?.[1] ?? 0;
       const upTo = (q: number) => (counts.find(([, c]) => c >= q * total)?.[0] ?? Number.NaN) * 1000;
@@ -285,7 +291,8 @@ export async function main(argv: string[]): Promise<void> {
       // machine's scheduling, which a shared machine inflates.
       out(
         `    server-side: p50 <= ${upTo(0.5)} ms, p99 <= ${upTo(0.99)} ms; ${within(0.001).toFixed(1)}% within 1 ms, ` +
-          `${within(0.002).toFixed(1)}% within 2 ms`,
+          `${within(0.002).toFixed(1)}% within 2 ms; server CPU ${(cpuPerRequest * 1e6).toFixed(0)} us a request ` +
+          `(${(cpuPerRequest * rate * 100).toFixed(0)}% of a core at ${rate} req/s)`,
       );
     };
     // A prediction request asks for one series on one day (40 features); a full-horizon read

@@ -1,4 +1,4 @@
-import { Counter, Histogram, Registry } from 'prom-client';
+import { Counter, collectDefaultMetrics, Histogram, Registry } from 'prom-client';
 import type { FallbackReason, ReaderEvents } from './read-types.js';
 
 /** The service's Prometheus metrics, on a registry of its own (several servers may share a process). */
@@ -13,6 +13,8 @@ export interface ServeMetrics {
 
 export function createMetrics(): ServeMetrics {
   const registry = new Registry();
+  // Process CPU, memory and event-loop lag beside the service's own counters.
+  collectDefaultMetrics({ register: registry, prefix: 'larder_' });
   const requests = new Counter({
     name: 'larder_http_requests_total',
     help: 'HTTP requests by route, method and status code',
