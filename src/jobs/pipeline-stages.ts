@@ -5,7 +5,8 @@ import type { Config } from '../config/config.js';
 import { day } from '../core/days.js';
 import { resolveFeatureSet } from '../features/feature-set.js';
 import type { WorkKit } from './partitioned-job.js';
-import type { PipelineStages, PipelineStep } from './pipeline-step.js';
+import type { PipelineStages } from './pipeline-step.js';
+import { auditStep } from './steps/audit-step.js';
 import { buildStep } from './steps/build-step.js';
 import { checkStep } from './steps/check-step.js';
 import { exportStep } from './steps/export-step.js';
@@ -19,8 +20,8 @@ export function configuredSets(config: Config): string[] {
   );
 }
 
-/** The real stages, in pipeline order: check, build, export, publish. */
-export function pipelineStages(kit: WorkKit, extra: { readonly audit?: PipelineStep } = {}): PipelineStages {
+/** The real stages, in pipeline order: check, build, audit, export, publish. */
+export function pipelineStages(kit: WorkKit): PipelineStages {
   return {
     setNames: configuredSets,
     loadWatched: loadWatchedFolder,
@@ -41,6 +42,6 @@ export function pipelineStages(kit: WorkKit, extra: { readonly audit?: PipelineS
       const s = await getSnapshot(db, set, cutoff);
       return s ? { definitionHash: s.definitionHash, dataFingerprint: s.dataFingerprint } : null;
     },
-    steps: [checkStep, buildStep(kit), ...(extra.audit ? [extra.audit] : []), exportStep, publishStep],
+    steps: [checkStep, buildStep(kit), auditStep, exportStep, publishStep],
   };
 }

@@ -84,8 +84,18 @@ export async function reopenJob(db: Db, jobId: number): Promise<void> {
   await notifyWork(db);
 }
 
+/**
+ * Closes a job. Items still pending or running are released (a worker holding one finds its
+ * claim gone at the next heartbeat): the job's outcome no longer depends on them.
+ */
 export async function closeJob(db: DbSession, jobId: number, status: 'done' | 'failed' | 'cancelled') {
   await db.query(`UPDATE work_jobs SET status = $2, finished_at = now() WHERE job_id = $1`, [jobId, status]);
+  await db.query(
+    `UPDATE work_items SET status = 'failed', claimed_by = NULL, finished_at = now(),
+       error_code = coalesce(error_code, 'JOB_CLOSED'), error = coalesce(error, 'the job was closed ' || $2)
+     WHERE job_id = $1 AND status IN ('pending', 'running')`,
+    [jobId, status],
+  );
 }
 
 /** An item a worker holds, with what its job carries. */

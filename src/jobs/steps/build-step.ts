@@ -4,6 +4,7 @@ import { getSnapshot } from '../../build/snapshot-catalogue.js';
 import { LarderError } from '../../db/errors.js';
 import type { WorkKit } from '../partitioned-job.js';
 import { runPartitioned } from '../partitioned-job.js';
+import { closeJob, findJob } from '../work-queue.js';
 import type { PipelineStep, StepEnv, StepResult } from '../pipeline-step.js';
 import {
   abortRefresh,
@@ -60,6 +61,7 @@ export async function fullBuild(env: StepEnv, kit: WorkKit): Promise<StepResult>
       jobId: run.jobId,
       partitionsMs: Math.round(buildMs),
     });
+    await closeJob(env.db, run.jobId, 'done');
     return {
       status: 'succeeded',
       rows: info.rowCount,
@@ -127,6 +129,7 @@ async function refresh(
       partitionsMs: Math.round(partitionsMs),
     };
     const r = await finishRefresh(env.db, plan, { runId: env.run.runId, jobId: run.jobId, ...timings });
+    await closeJob(env.db, run.jobId, 'done');
     const finishMs = Math.round(performance.now() - tf);
     return {
       status: 'succeeded',
@@ -182,6 +185,12 @@ export function buildStep(kit: WorkKit): PipelineStep {
         current.definitionHash === inputs.definitionHash &&
         current.dataFingerprint === inputs.dataFingerprint
       ) {
+        // A process that finished the build but died before recording it left its job open.
+        const open = await findJob(
+          env.db,
+          `build:${set}:${env.cutoff}:${inputs.definitionHash}:${inputs.dataFingerprint}`,
+        );
+        if (open?.status === 'open') await closeJob(env.db, open.jobId, 'done');
         return {
           status: 'succeeded',
           rows: current.rowCount,
