@@ -44,7 +44,10 @@ test('missed firings since the last recorded run are only reported without --cat
   // The loop would then sleep until 12:10; the reporter stops it when it announces that firing.
   const stopping: Reporter = {
     ...reporter,
-    info: (m) => (reporter.info(m), m.startsWith('next:') && ac.abort()),
+    info: (m) => {
+      reporter.info(m);
+      if (m.startsWith('next:')) ac.abort();
+    },
   };
   await runScheduler({
     db: t().db,
