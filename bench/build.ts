@@ -1,6 +1,7 @@
 /**
  * `npm run bench -- build [--scale small|full] [--stores N --items N --days N] [--fresh] [--keep]
- *   [--refs a,b,c]` (--refs picks the references measured; default all three)
+ *   [--refs a,b,c] [--concurrency N]` (--refs picks the references measured, default all three;
+ *   --concurrency the partitions at once for the builds and the floor, default min(pool, cores))
  *
  * The feature build on a synthetic chain (full: 10 stores x 3,000 items x 1,900 days = 57M sales
  * rows; small: 10 x 30 x 1,900) in its own schema `bench_build` (kept between runs unless its
@@ -296,6 +297,7 @@ export async function main(argv: string[]): Promise<void> {
       fresh: { type: 'boolean', default: false },
       keep: { type: 'boolean', default: false },
       refs: { type: 'string', default: 'a,b,c' },
+      concurrency: { type: 'string' },
     },
   });
   const base = SCALES[o.scale as keyof typeof SCALES];
@@ -323,7 +325,7 @@ export async function main(argv: string[]): Promise<void> {
   try {
     if (!same || o.fresh) await generate(db, shape);
     const cutoff = parseDay(START)! + shape.days - 1;
-    const limit = Math.min(db.parallelism, availableParallelism());
+    const limit = o.concurrency ? Number(o.concurrency) : Math.min(db.parallelism, availableParallelism());
     const parts = (
       await db.query<{ store_id: string }>('SELECT DISTINCT store_id FROM series ORDER BY 1')
     ).rows.map((r) => r.store_id);
@@ -343,7 +345,12 @@ export async function main(argv: string[]): Promise<void> {
     const rss0 = process.memoryUsage().rss;
     const cpu0 = process.cpuUsage();
     const t0 = performance.now();
-    const info = await buildSnapshot(db, config, { set: 'standard', cutoff: formatDay(cutoff) });
+    const info = await buildSnapshot(
+      db,
+      config,
+      { set: 'standard', cutoff: formatDay(cutoff) },
+      { concurrency: limit },
+    );
     const buildMs = performance.now() - t0;
     const buildCpu = process.cpuUsage(cpu0);
     const peakRss = process.resourceUsage().maxRSS * 1024;
@@ -380,7 +387,12 @@ export async function main(argv: string[]): Promise<void> {
       'bench',
     );
     const t1 = performance.now();
-    const winfo = await buildSnapshot(db, wconfig, { set: 'bench_windows', cutoff: formatDay(cutoff) });
+    const winfo = await buildSnapshot(
+      db,
+      wconfig,
+      { set: 'bench_windows', cutoff: formatDay(cutoff) },
+      { concurrency: limit },
+    );
     const windowsMs = performance.now() - t1;
     const spec = windowSpecs(def.families.lags!.days, def.families.windows!);
     const from = parseDay(winfo.trainFrom)!;

@@ -35,23 +35,23 @@ function statements(cutoff: number, priceBoundary: number): Record<string, strin
 /**
  * The data fingerprint of a build: counts and checksums of the raw rows it may see (sales up
  * to the cutoff, prices up to the price boundary, the whole calendar, events, benefit days and
- * hierarchy), all set-based. `sessions` run the statements side by side (one each at most).
+ * hierarchy), all set-based, on one session of `run`.
  */
 export async function dataFingerprint(
   run: <T>(fn: (s: DbSession) => Promise<T>) => Promise<T>,
   cutoff: number,
   priceBoundary: number,
 ): Promise<DataFingerprint> {
-  const entries = Object.entries(statements(cutoff, priceBoundary));
-  const results = await Promise.all(
-    entries.map(([name, sql]) =>
-      run(async (s) => {
-        const r = (await s.query<{ n: number; h: string }>(sql)).rows[0]!;
-        return [name, { rows: Number(r.n), checksum: r.h }] as const;
-      }),
-    ),
-  );
-  const parts = Object.fromEntries(results);
+  // One session, one statement after the other: the sales scan dominates and runs with the
+  // server's parallel workers anyway, and the plan's other work needs the pool's connections.
+  const parts = await run(async (s) => {
+    const out: Record<string, FingerprintPart> = {};
+    for (const [name, sql] of Object.entries(statements(cutoff, priceBoundary))) {
+      const r = (await s.query<{ n: number; h: string }>(sql)).rows[0]!;
+      out[name] = { rows: Number(r.n), checksum: r.h };
+    }
+    return out;
+  });
   const fingerprint = createHash('sha256').update(canonicalJson(parts)).digest('hex');
   return { fingerprint, parts };
 }
