@@ -171,7 +171,7 @@ export async function main(argv: string[]): Promise<void> {
 
     const all: { item: string; store: string }[] = [];
     const t1 = performance.now();
-    for await (const b of reader.readAll({ set, batchSize: 200 })) {
+    for await (const b of reader.readAll({ set })) {
       for (let i = 0; i < b.items.length; i++) all.push({ item: b.items[i]!, store: b.stores[i]! });
     }
     const readAllRate = all.length / ((performance.now() - t1) / 1000);

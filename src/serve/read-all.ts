@@ -8,9 +8,9 @@ import type { ViewResolver } from './version-view.js';
 
 export interface ReadAllOptions {
   readonly set: string;
-  /** Series per batch (one MGET each), default 200. */
+  /** Series per batch (one MGET each), default 100. */
   readonly batchSize?: number;
-  /** MGETs in flight at once, default 2. */
+  /** MGETs in flight at once, default 4 (measured best with 100-series batches of 4.5 kB vectors). */
   readonly inflight?: number;
 }
 
@@ -27,8 +27,8 @@ export async function* readAllSeries(
   resolve: ViewResolver,
   o: ReadAllOptions,
 ): AsyncGenerator<SeriesBatch> {
-  const batchSize = o.batchSize ?? 200;
-  const inflight = Math.max(1, o.inflight ?? 2);
+  const batchSize = o.batchSize ?? 100;
+  const inflight = Math.max(1, o.inflight ?? 4);
   if (!/^[a-z][a-z0-9_]{0,62}$/.test(o.set)) throw new BadRequestError(`set '${o.set}' is not a set name`);
   if (!Number.isInteger(batchSize) || batchSize < 1)
     throw new BadRequestError('batchSize must be a positive integer');
