@@ -55,6 +55,6 @@ test('a run for a day whose sales have not arrived waits for the file, loads it 
     await db.query<{ rows: number; status: string }>(`SELECT rows, status FROM run_steps WHERE name = 'load'`)
   ).rows;
   expect(load).toEqual([{ rows: 8, status: 'succeeded' }]);
-  const snap = await db.query('SELECT 1 FROM snapshots WHERE cutoff = $1', [day]);
-  expect(snap.rowCount).toBe(1);
+  const built = await db.query('SELECT 1 FROM snapshots WHERE cutoff = $1', [day]);
+  expect(built.rowCount).toBe(1);
 });
