@@ -28,7 +28,18 @@ function sessionOn(client: pg.PoolClient | pg.Client): DbSession {
       return Number(stream.rowCount ?? 0);
     },
     copyTo(copySql) {
-      return client.query(copyToStream(copySql));
+      return (async function* () {
+        const stream = client.query(copyToStream(copySql));
+        let finished = false;
+        try {
+          yield* stream.iterator({ destroyOnReturn: false });
+          finished = true;
+        } finally {
+          // A consumer that stops early would leave this connection in COPY mode, and the next
+          // statement on it would hang: read the rest before the session goes on.
+          if (!finished) for await (const _ of stream);
+        }
+      })();
     },
   };
 }
@@ -72,11 +83,17 @@ export function openPgDatabase(url: string, schema: string, poolSize = 4): Db {
       return (async function* () {
         const client = await pool.connect();
         client.on('error', ignoreError);
+        const stream = client.query(copyToStream(sql));
+        let finished = false;
         try {
-          yield* sessionOn(client).copyTo(sql);
+          yield* stream.iterator({ destroyOnReturn: false });
+          finished = true;
         } finally {
-          client.off('error', ignoreError);
-          client.release();
+          // Stopped early, the discarded connection may still report errors: keep ignoring them.
+          if (!finished) stream.on('error', ignoreError);
+          else client.off('error', ignoreError);
+          // Stopped early, the connection is still mid-COPY: discard it rather than drain it.
+          client.release(!finished);
         }
       })();
     },

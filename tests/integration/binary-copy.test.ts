@@ -49,3 +49,15 @@ test('binary COPY rows written by the writer read back identically through the s
   }
   expect(seen).toBe(n);
 });
+
+test('a COPY read abandoned early leaves the pool and the session usable', async () => {
+  const { db } = t();
+  for (let i = 0; i < 6; i++) {
+    for await (const _ of db.copyTo('COPY (SELECT g FROM generate_series(1, 200000) g) TO STDOUT')) break;
+    expect((await db.query<{ n: number }>('SELECT 1::int AS n')).rows).toEqual([{ n: 1 }]);
+  }
+  await db.session(async (s) => {
+    for await (const _ of s.copyTo('COPY (SELECT g FROM generate_series(1, 200000) g) TO STDOUT')) break;
+    expect((await s.query<{ n: number }>('SELECT 2::int AS n')).rows).toEqual([{ n: 2 }]);
+  });
+});
