@@ -1,9 +1,9 @@
+import { runCli } from '../helpers/cli.js';
 import { spawn } from 'node:child_process';
 import { existsSync, mkdtempSync, rmSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join, resolve } from 'node:path';
 import { afterAll, beforeAll, describe, expect, test } from 'vitest';
-import { main } from '../../src/cli/main.js';
 import { schemaFor, useTestDb } from '../helpers/db.js';
 import { databaseUrl } from '../helpers/servers.js';
 
@@ -18,26 +18,8 @@ let root: string;
 let data: string;
 
 /** Runs the CLI in this process, capturing what it prints. */
-async function larderHere(args: string[]) {
-  let out = '';
-  let err = '';
-  const so = process.stdout.write.bind(process.stdout);
-  const se = process.stderr.write.bind(process.stderr);
-  process.stdout.write = ((c: string | Uint8Array) => {
-    out += String(c);
-    return true;
-  }) as typeof process.stdout.write;
-  process.stderr.write = ((c: string | Uint8Array) => {
-    err += String(c);
-    return true;
-  }) as typeof process.stderr.write;
-  try {
-    const code = await main(['node', 'larder', ...args]);
-    return { code, out, err };
-  } finally {
-    process.stdout.write = so;
-    process.stderr.write = se;
-  }
+function larderHere(args: string[]) {
+  return runCli(args);
 }
 
 /** Runs the CLI as a user does: its own process, its own working folder and environment. */

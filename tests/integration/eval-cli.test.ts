@@ -1,8 +1,8 @@
+import { runCli } from '../helpers/cli.js';
 import { existsSync, mkdtempSync, readFileSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { beforeAll, expect, test } from 'vitest';
-import { main } from '../../src/cli/main.js';
 import { useTestDb } from '../helpers/db.js';
 import { CUTOFF, seedChain, twoItemChain } from './eval-fixtures.js';
 import { makeSnapshot } from './export-fixtures.js';
@@ -12,26 +12,8 @@ const t = useTestDb(import.meta.url);
 const dir = mkdtempSync(join(tmpdir(), 'larder-eval-cli-'));
 let configFile = '';
 
-async function larder(args: string[]) {
-  let out = '';
-  let err = '';
-  const so = process.stdout.write.bind(process.stdout);
-  const se = process.stderr.write.bind(process.stderr);
-  process.stdout.write = ((c: string | Uint8Array) => {
-    out += String(c);
-    return true;
-  }) as typeof process.stdout.write;
-  process.stderr.write = ((c: string | Uint8Array) => {
-    err += String(c);
-    return true;
-  }) as typeof process.stderr.write;
-  try {
-    const code = await main(['node', 'larder', '--config', configFile, ...args]);
-    return { code, out, err };
-  } finally {
-    process.stdout.write = so;
-    process.stderr.write = se;
-  }
+function larder(args: string[]) {
+  return runCli(['--config', configFile, ...args]);
 }
 
 beforeAll(async () => {

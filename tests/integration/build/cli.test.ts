@@ -1,8 +1,8 @@
+import { runCli } from '../../helpers/cli.js';
 import { mkdtempSync, rmSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { afterAll, beforeAll, expect, test } from 'vitest';
-import { main } from '../../../src/cli/main.js';
 import { useTestDb } from '../../helpers/db.js';
 import { databaseUrl } from '../../helpers/servers.js';
 import { insertChain } from './chain-fixture.js';
@@ -36,26 +36,8 @@ beforeAll(async () => {
 afterAll(() => rmSync(dir, { recursive: true, force: true }));
 
 /** Runs the CLI in this process, capturing what it prints. */
-async function larder(...args: string[]) {
-  let out = '';
-  let err = '';
-  const so = process.stdout.write.bind(process.stdout);
-  const se = process.stderr.write.bind(process.stderr);
-  process.stdout.write = ((c: string | Uint8Array) => {
-    out += String(c);
-    return true;
-  }) as typeof process.stdout.write;
-  process.stderr.write = ((c: string | Uint8Array) => {
-    err += String(c);
-    return true;
-  }) as typeof process.stderr.write;
-  try {
-    const code = await main(['node', 'larder', '-c', configPath, ...args]);
-    return { code, out, err };
-  } finally {
-    process.stdout.write = so;
-    process.stderr.write = se;
-  }
+function larder(...args: string[]) {
+  return runCli(['-c', configPath, ...args]);
 }
 
 test('larder sets lists features and the definition hash', async () => {
