@@ -37,7 +37,13 @@ function sessionOn(client: pg.PoolClient | pg.Client): DbSession {
         } finally {
           // A consumer that stops early would leave this connection in COPY mode, and the next
           // statement on it would hang: read the rest before the session goes on.
-          if (!finished) for await (const _ of stream);
+          if (!finished && !stream.destroyed) {
+            try {
+              for await (const _ of stream);
+            } catch {
+              // the error the consumer already saw (or its own early exit) is the one that counts
+            }
+          }
         }
       })();
     },
