@@ -2,6 +2,7 @@ import type { BuildPlan } from '../build/build-plan.js';
 import { buildPartition } from '../build/build-partition.js';
 import { type RefreshPlan, refreshPartition } from './incremental-refresh.js';
 import type { WorkHandler } from './worker.js';
+import type { JobProcess } from './runner-process.js';
 
 /** Item kind of one partition of a snapshot build; the job payload is the build plan. */
 export const BUILD_PARTITION = 'build-partition';
@@ -35,3 +36,8 @@ export const WORK_HANDLERS: ReadonlyMap<string, WorkHandler> = new Map([
   [buildPartitionHandler.kind, buildPartitionHandler],
   [refreshPartitionHandler.kind, refreshPartitionHandler],
 ]);
+
+/** What the pipeline's partitioned steps need from a job process: handlers, wake-ups, a name. */
+export function workKit(proc: Pick<JobProcess, 'waker' | 'holder'>) {
+  return { handlers: WORK_HANDLERS, waker: proc.waker, name: `${proc.holder.host}:${proc.holder.pid}` };
+}

@@ -3,7 +3,7 @@ import type { DbSession } from '../../db/database.js';
 import type { Finding, Severity } from '../finding.js';
 import { readFindings } from '../read-findings.js';
 import { CHECK_NAMES, findCheck } from '../registry.js';
-import type { CheckStatus } from '../run-checks.js';
+import type { CheckStatus, CheckSummary } from '../run-checks.js';
 
 /** Everything the HTML report shows, read from a stored check run (no recomputation). */
 export interface ReportData {
@@ -23,18 +23,11 @@ export interface ReportData {
     readonly salesRows: number | null;
     readonly seriesSeen: number | null;
   };
-  readonly checks: ReadonlyArray<{
-    readonly check: string;
-    readonly description: string;
-    readonly status: CheckStatus;
-    readonly blocking: number;
-    readonly warnings: number;
-    readonly infos: number;
-    readonly waived: number;
-    readonly elapsedMs: number;
-    readonly error: string | null;
-    readonly codes: ReadonlyArray<{ code: string; severity: Severity; meaning: string; count: number }>;
-  }>;
+  readonly checks: ReadonlyArray<
+    CheckSummary & {
+      readonly codes: ReadonlyArray<{ code: string; severity: Severity; meaning: string; count: number }>;
+    }
+  >;
   /** Chain-wide units per day (epoch day of index 0), or null when no check read sales. */
   readonly daily: { readonly firstDay: number; readonly units: Float64Array } | null;
   /** Findings about the whole chain on given days (volume drops, calendar gaps). */

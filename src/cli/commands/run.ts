@@ -5,7 +5,7 @@ import { pipelineStages } from '../../jobs/pipeline-stages.js';
 import { type RunOutcome, runPipeline } from '../../jobs/run-pipeline.js';
 import { RunBusyError } from '../../jobs/run-lock.js';
 import { openJobProcess, stopOnSignals } from '../../jobs/runner-process.js';
-import { WORK_HANDLERS } from '../../jobs/work-handlers.js';
+import { workKit } from '../../jobs/work-handlers.js';
 import type { CliContext } from '../context.js';
 
 /** Exit code when --no-wait finds the run taken by another process. */
@@ -56,11 +56,7 @@ export function register(program: Command, ctx: CliContext): void {
         ctx.onClose(() => proc.close());
         const stop = stopOnSignals(proc.reporter, 'finishing the current step, then stopping');
         ctx.onClose(() => stop.dispose());
-        const kit = {
-          handlers: WORK_HANDLERS,
-          waker: proc.waker,
-          name: `${proc.holder.host}:${proc.holder.pid}`,
-        };
+        const kit = workKit(proc);
         try {
           const outcome = await runPipeline(
             {

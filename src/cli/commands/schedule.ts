@@ -4,7 +4,7 @@ import { pipelineStages } from '../../jobs/pipeline-stages.js';
 import { runPipeline } from '../../jobs/run-pipeline.js';
 import { openJobProcess, stopOnSignals } from '../../jobs/runner-process.js';
 import { runScheduler, scheduleTrigger } from '../../jobs/scheduler.js';
-import { WORK_HANDLERS } from '../../jobs/work-handlers.js';
+import { workKit } from '../../jobs/work-handlers.js';
 import type { CliContext } from '../context.js';
 import { parseConcurrency } from './run.js';
 
@@ -29,11 +29,7 @@ export function register(program: Command, ctx: CliContext): void {
       ctx.onClose(() => proc.close());
       const stop = stopOnSignals(proc.reporter, 'finishing the current step, then stopping');
       ctx.onClose(() => stop.dispose());
-      const kit = {
-        handlers: WORK_HANDLERS,
-        waker: proc.waker,
-        name: `${proc.holder.host}:${proc.holder.pid}`,
-      };
+      const kit = workKit(proc);
       const runner = {
         db: proc.db,
         lockDb: proc.lockDb,
