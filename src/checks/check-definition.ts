@@ -45,7 +45,10 @@ export interface CheckContext<P> {
   sales(visitor?: SeriesVisitor): Promise<SalesPassResult>;
   /** Joins the shared prices pass (which runs before the sales pass). */
   prices(visitor?: PriceVisitor): Promise<PricePassResult>;
-  /** Stores findings in batches (set-based); item, store and region are filled from series_id. */
+  /**
+   * Stores findings as rows of the run's one binary COPY (visible once every check has finished);
+   * item, store and region are filled from series_id.
+   */
   write(drafts: Iterable<FindingDraft>): Promise<number>;
   /**
    * Stores the rows of a SELECT as findings of `code`: `select` returns the named columns (days

@@ -1,4 +1,5 @@
 import { formatDay } from '../core/days.js';
+import { CopyBinaryWriter } from '../db/binary-copy.js';
 import type { DbSession } from '../db/database.js';
 import type { FindingColumn } from './check-definition.js';
 import type { FindingCode, FindingDraft, Severity } from './finding.js';
@@ -168,4 +169,144 @@ export async function insertFindingsFrom(
     SELECT ${values.join(', ')} FROM (${select}) AS f(${columns.join(', ')}) ${joins.join(' ')}`;
   const res = await db.query(sql, [...params, runId, check, code, severity]);
   return res.rowCount;
+}
+
+/** Item, store and region of each series, and each store's region, for findings written by COPY. */
+export interface FindingKeys {
+  readonly series: ReadonlyMap<number, { readonly itemId: string; readonly storeId: string }>;
+  readonly regionOf: ReadonlyMap<string, string | null>;
+}
+
+/** Loads the keys `FindingSink` fills in (two small tables: tens of thousands of series at most). */
+export async function loadFindingKeys(db: DbSession): Promise<FindingKeys> {
+  const [series, stores] = await Promise.all([
+    db.query<{ series_id: number; item_id: string; store_id: string }>(
+      'SELECT series_id, item_id, store_id FROM series',
+    ),
+    db.query<{ store_id: string; region_id: string | null }>('SELECT store_id, region_id FROM stores'),
+  ]);
+  return {
+    series: new Map(series.rows.map((r) => [r.series_id, { itemId: r.item_id, storeId: r.store_id }])),
+    regionOf: new Map(stores.rows.map((r) => [r.store_id, r.region_id])),
+  };
+}
+
+const FINDING_COPY_SQL = `COPY findings (run_id, "check", code, severity, series_id, item_id, store_id, region_id,
+  first_day, last_day, week_start, detectable_day, observed, threshold, rank, message, details)
+  FROM STDIN (FORMAT binary)`;
+const SEVERITIES: ReadonlySet<string> = new Set(['block', 'warn', 'info']);
+
+/**
+ * Every finding a run's checks write, as rows of one binary COPY into `findings`. Rows are
+ * encoded as checks hand them over; with `streaming` the COPY starts at once on its own
+ * connection, so the server stores findings while the sales pass is still running, otherwise
+ * (one connection, or the embedded database) it runs at `close`. Rows become visible when
+ * `close` resolves. Item, store and region are filled from the series and the store's region
+ * as `writeFindings` does, from `keys` loaded once instead of a join per batch.
+ */
+export class FindingSink {
+  private readonly writer = new CopyBinaryWriter();
+  private readonly queue: Uint8Array[] = [];
+  private wake: (() => void) | undefined;
+  private closed = false;
+  private copy: Promise<number> | undefined;
+  private written = 0;
+
+  constructor(
+    private readonly db: DbSession,
+    private readonly runId: number,
+    private readonly keys: FindingKeys,
+    streaming: boolean,
+  ) {
+    if (streaming) this.start();
+  }
+
+  private start(): void {
+    const copy = this.db.copyFrom(FINDING_COPY_SQL, this.chunks());
+    // Seen by `close`; until then a failure must not surface as an unhandled rejection.
+    copy.catch(() => {});
+    this.copy = copy;
+  }
+
+  private async *chunks(): AsyncGenerator<Uint8Array> {
+    for (;;) {
+      while (this.queue.length) yield this.queue.shift()!;
+      if (this.closed) return;
+      await new Promise<void>((res) => {
+        this.wake = res;
+      });
+      this.wake = undefined;
+    }
+  }
+
+  private push(chunks: Uint8Array[]): void {
+    if (chunks.length === 0) return;
+    this.queue.push(...chunks);
+    this.wake?.();
+  }
+
+  /**
+   * Encodes the drafts of one check as findings (synchronously, so one check's rows stay
+   * together in its own order). A draft that cannot be stored throws before any row of the
+   * batch is encoded, so the check fails instead of the whole COPY.
+   */
+  add(check: string, severityOf: (code: FindingCode) => Severity, drafts: Iterable<FindingDraft>): number {
+    if (this.closed) throw new Error('findings written after the run closed its findings');
+    const list = Array.isArray(drafts) ? (drafts as FindingDraft[]) : [...drafts];
+    const severities = list.map((f) => {
+      const s = f.severity ?? severityOf(f.code);
+      if (!SEVERITIES.has(s))
+        throw new Error(`finding ${f.code}: severity '${s}' is not block, warn or info`);
+      if (typeof f.message !== 'string') throw new Error(`finding ${f.code}: no message`);
+      return s;
+    });
+    const w = this.writer;
+    const text = (v: string | null | undefined) => (v === null || v === undefined ? w.null() : w.text(v));
+    const date = (d: number | null | undefined) => (d === null || d === undefined ? w.null() : w.date(d));
+    const float = (v: number | null | undefined) =>
+      v === null || v === undefined || !Number.isFinite(v) ? w.null() : w.float8(v);
+    for (let i = 0; i < list.length; i++) {
+      const f = list[i]!;
+      const series =
+        f.seriesId === null || f.seriesId === undefined ? undefined : this.keys.series.get(f.seriesId);
+      const storeId = f.storeId ?? series?.storeId ?? null;
+      const regionId = f.regionId ?? (storeId === null ? null : (this.keys.regionOf.get(storeId) ?? null));
+      w.row(17);
+      w.int8(this.runId);
+      w.text(check);
+      w.text(f.code);
+      w.text(severities[i]!);
+      if (f.seriesId === null || f.seriesId === undefined) w.null();
+      else w.int4(f.seriesId);
+      text(f.itemId ?? series?.itemId);
+      text(storeId);
+      text(regionId);
+      date(f.firstDay);
+      date(f.lastDay);
+      date(f.weekStart);
+      date(f.detectableDay);
+      float(f.observed);
+      float(f.threshold);
+      float(f.rank);
+      w.text(f.message);
+      const details = JSON.stringify(f.details);
+      // Binary jsonb is a version byte (1) followed by the JSON text.
+      text(details === undefined ? null : `\u0001${details}`);
+    }
+    this.push(w.take());
+    this.written += list.length;
+    return list.length;
+  }
+
+  /** Ends the COPY (starting it first when not streaming); resolves with the rows stored. */
+  async close(): Promise<number> {
+    if (!this.closed) {
+      this.closed = true;
+      this.push(this.writer.end());
+      if (!this.copy) this.start();
+      this.wake?.();
+    }
+    await this.copy;
+    return this.written;
+  }
 }

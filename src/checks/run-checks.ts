@@ -4,7 +4,7 @@ import type { Db } from '../db/database.js';
 import { ConfigError, UsageError } from '../db/errors.js';
 import type { AnyCheck, CheckContext, CommonParams, PassName } from './check-definition.js';
 import type { FindingCode, Finding, Severity } from './finding.js';
-import { insertFindingsFrom, writeFindings } from './finding-writer.js';
+import { FindingSink, insertFindingsFrom, loadFindingKeys, writeFindings } from './finding-writer.js';
 import { type PricePassResult, type PriceVisitor, runPricePass } from './price-pass.js';
 import { readFindings } from './read-findings.js';
 import { CHECK_NAMES, CHECKS } from './registry.js';
@@ -112,6 +112,14 @@ export async function runChecks(
     [cutoff === null ? null : formatDay(cutoff), opts.only ? [...opts.only] : null, scheduled],
   );
   const runId = run.rows[0]!.run_id;
+  // One binary COPY carries every finding the checks write; on a server with connections to
+  // spare it streams while the passes run, so storing findings overlaps reading sales.
+  const sink = new FindingSink(
+    db,
+    runId,
+    await loadFindingKeys(db),
+    db.kind === 'server' && db.parallelism >= 4,
+  );
   const timings: Record<string, number> = {};
   const timed = async <T>(name: string, fn: () => Promise<T>) => {
     const t0 = performance.now();
@@ -163,7 +171,7 @@ export async function runChecks(
           join('sales');
           return salesPass.subscribe(visitor);
         },
-        write: (drafts) => writeFindings(db, runId, c.name, severity, drafts),
+        write: async (drafts) => sink.add(c.name, severity, drafts),
         insertFrom: (code, columns, select, sqlParams) =>
           insertFindingsFrom(db, runId, c.name, code, severity(code), columns, select, sqlParams),
       };
@@ -181,16 +189,17 @@ export async function runChecks(
       }
       const elapsedMs = performance.now() - t0;
       timings[c.name] = Math.round(elapsedMs);
-      if (error !== null) {
-        // Partial output of a failed check is dropped; the failure itself blocks.
-        await db.query(`DELETE FROM findings WHERE run_id = $1 AND "check" = $2`, [runId, c.name]);
-        await writeFindings(db, runId, c.name, () => 'block', [
-          { code: 'check-failed', details: { error }, message: `the check could not run: ${error}` },
-        ]);
-      }
       return { check: c, elapsedMs, error, params: p };
     }),
-  );
+  ).finally(() => sink.close());
+  for (const o of outcomes) {
+    if (o.error === null) continue;
+    // Partial output of a failed check is dropped; the failure itself blocks.
+    await db.query(`DELETE FROM findings WHERE run_id = $1 AND "check" = $2`, [runId, o.check.name]);
+    await writeFindings(db, runId, o.check.name, () => 'block', [
+      { code: 'check-failed', details: { error: o.error }, message: `the check could not run: ${o.error}` },
+    ]);
+  }
 
   if (salesResult && salesResult.daily.units.length > 0) {
     const d = salesResult.daily;
