@@ -15,6 +15,13 @@ import { calendarCodes } from '../features/calendar.js';
 import type { SeriesInput } from '../features/family.js';
 import { resolveFeatureSet } from '../features/feature-set.js';
 import { stockoutMask } from '../features/stockout-mask.js';
+import {
+  type ChangeMark,
+  changeInside,
+  changesSince,
+  recordSnapshotMark,
+  snapshotMark,
+} from './change-log.js';
 
 /**
  * Incremental refresh of a shift-mode snapshot from cutoff P to a later cutoff C.
@@ -47,6 +54,9 @@ export interface RefreshPlan {
   readonly trainFrom: string;
   readonly dataFingerprint: string;
   readonly fingerprintParts: BuildPlan['fingerprintParts'];
+  /** The change log before the run's fingerprint: no change may come after it before the finish. */
+  readonly changeMark: ChangeMark;
+  readonly priceBoundary: string;
   /** A build plan over the anchor days P+1 .. C+H only; its staging table receives the new rows. */
   readonly build: BuildPlan;
 }
@@ -81,6 +91,7 @@ export interface RefreshBasis {
   readonly trainFrom: string;
   readonly dataFingerprint: string;
   readonly fingerprintParts: BuildPlan['fingerprintParts'];
+  readonly changeMark: ChangeMark;
 }
 
 export async function checkRefresh(
@@ -93,6 +104,8 @@ export async function checkRefresh(
     dataFingerprint: string;
     /** The parts of `dataFingerprint` (computed once by the run's planning). */
     fingerprintParts: BuildPlan['fingerprintParts'];
+    /** Where the change log stood before that fingerprint. */
+    changeMark: ChangeMark;
   },
 ): Promise<RefreshBasis | NoRefresh> {
   const set = resolveFeatureSet(config, setName);
@@ -122,14 +135,22 @@ export async function checkRefresh(
   if (from < parseDay(prev.train_from)!)
     return { reason: 'the training span starts earlier than the previous one' };
   if (from > P) return { reason: 'no training row of the previous snapshot is kept' };
-  // The previous snapshot's own fingerprint, recomputed on today's tables: equal means nothing it
-  // read has changed (corrections, late rows, hierarchy or calendar edits all show here).
-  const prevWindow = buildWindow(set, P, P);
-  const again = await dataFingerprint((fn) => db.session(fn), P, prevWindow.priceBoundary);
-  if (again.fingerprint !== prev.data_fingerprint) {
-    return {
-      reason: `data inside the boundaries of the snapshot of ${prev.cutoff} changed since it was built`,
-    };
+  // Has anything the previous snapshot read changed since? The change log answers when the
+  // snapshot has a mark (built by the runner): corrections, late rows, hierarchy or calendar
+  // edits and writes outside the loader are all logged. Without a mark, its own fingerprint is
+  // recomputed on today's tables (a full scan).
+  const changed = `data inside the boundaries of the snapshot of ${prev.cutoff} changed since it was built`;
+  const m = await snapshotMark(db, Number(prev.snapshot_id));
+  if (m) {
+    const since = await changesSince(db, m.mark);
+    if (since === null)
+      return { reason: `${changed}: the change log cannot tell (a change committed out of order)` };
+    const inside = changeInside(since, m);
+    if (inside !== null) return { reason: `${changed}: ${inside}` };
+  } else {
+    const prevWindow = buildWindow(set, P, P);
+    const again = await dataFingerprint((fn) => db.session(fn), P, prevWindow.priceBoundary);
+    if (again.fingerprint !== prev.data_fingerprint) return { reason: changed };
   }
 
   return {
@@ -141,6 +162,7 @@ export async function checkRefresh(
     trainFrom: formatDay(from),
     dataFingerprint: inputs.dataFingerprint,
     fingerprintParts: inputs.fingerprintParts,
+    changeMark: inputs.changeMark,
   };
 }
 
@@ -217,6 +239,8 @@ export async function createRefreshPlan(db: Db, config: Config, basis: RefreshBa
     trainFrom: basis.trainFrom,
     dataFingerprint: basis.dataFingerprint,
     fingerprintParts: basis.fingerprintParts,
+    changeMark: basis.changeMark,
+    priceBoundary: formatDay(w.priceBoundary),
     build,
   };
 }
@@ -348,6 +372,9 @@ export async function finishRefresh(
       );
     }
     await checkLoadMark(tx, b);
+    const since = await changesSince(tx, plan.changeMark);
+    if (since === null || since.length > 0)
+      throw new LarderError('DATA_CHANGED', 'raw data changed while the refresh ran: run again');
     const expected = b.partitions.length;
     const parts = (
       await tx.query<{ n: number }>(
@@ -402,6 +429,11 @@ export async function finishRefresh(
         JSON.stringify({ ...timings, refreshedFrom: plan.previousCutoff }),
       ],
     );
+    await recordSnapshotMark(tx, Number(moved.rows[0]!.id), {
+      mark: plan.changeMark,
+      cutoff: parseDay(plan.cutoff)!,
+      priceBoundary: parseDay(plan.priceBoundary)!,
+    });
     await tx.exec(`DROP TABLE ${delta}`);
     if (b.groupTable) await tx.exec(`DROP TABLE IF EXISTS ${quoteIdent(b.groupTable)}`);
     return {

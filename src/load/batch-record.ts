@@ -77,3 +77,25 @@ export async function recordBatch(tx: DbSession, b: BatchOutcome): Promise<numbe
   }
   return batchId;
 }
+
+/**
+ * Logs a stored batch in the change log (sql/000007.sql): its table and the days (weeks, for
+ * prices) its rows cover. In replace mode the deleted rows match the file's own keys, so the
+ * same range covers them. A table without days logs an unknown range.
+ */
+export async function recordChange(
+  tx: DbSession,
+  table: string,
+  b: Pick<BatchOutcome, 'firstDay' | 'lastDay'>,
+  batchId: number,
+): Promise<void> {
+  await tx.query(
+    'INSERT INTO data_changes (table_name, first_day, last_day, batch_id) VALUES ($1, $2::date, $3::date, $4)',
+    [
+      table,
+      b.firstDay === null ? null : formatDay(b.firstDay),
+      b.lastDay === null ? null : formatDay(b.lastDay),
+      batchId,
+    ],
+  );
+}

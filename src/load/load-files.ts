@@ -9,7 +9,7 @@ import { readCopyBinary } from '../db/binary-copy.js';
 import type { Db, DbSession } from '../db/database.js';
 import { CopyBinaryWriter } from '../db/binary-copy.js';
 import { InputError, UsageError } from '../db/errors.js';
-import { type BatchOutcome, type RejectRow, recordBatch } from './batch-record.js';
+import { type BatchOutcome, type RejectRow, recordBatch, recordChange } from './batch-record.js';
 import * as sql from './load-sql.js';
 import { dupKeyId, inspectHeader, type ParseJob, type ParseResult, resolveFile } from './parse-file.js';
 import { startParse } from './parse-runner.js';
@@ -125,6 +125,9 @@ async function loadOne(
   try {
     [outcome, batchId] = await db.transaction(async (tx) => {
       await tx.exec(sql.lockSql(spec));
+      // The batch logs its own exact day range (recordChange); the raw tables' statement
+      // triggers stay quiet for this transaction.
+      await tx.query(sql.LOADER_SESSION_SQL);
       const series = target === 'sales' ? await readSeries(tx) : undefined;
       // Fast path: into an empty sales table no stored row can conflict, so rows skip staging.
       const direct =
@@ -201,7 +204,9 @@ async function loadOne(
           ? `${rejected} ${rejected === 1 ? 'row' : 'rows'} rejected (limit ${maxRejects})${capped}`
           : null;
       const loaded: BatchOutcome = { ...base, status: 'loaded', rowsStored: stored, message };
-      return [loaded, await recordBatch(tx, loaded)] as const;
+      const id = await recordBatch(tx, loaded);
+      if (stored > 0) await recordChange(tx, spec.table, loaded, id);
+      return [loaded, id] as const;
     });
   } catch (err) {
     if (!(err instanceof BatchRejected)) throw err;

@@ -50,6 +50,9 @@ const list = (cols: readonly string[], alias = '') =>
   cols.map((c) => (alias ? `${alias}.${q(c)}` : q(c))).join(', ');
 const join = (cols: readonly string[]) => cols.map((c) => `t.${q(c)} = s.${q(c)}`).join(' AND ');
 
+/** Marks the batch's transaction as the loader's: the raw tables' change triggers stay quiet (sql/000007.sql). */
+export const LOADER_SESSION_SQL = "SELECT set_config('larder.loader', 'on', true)";
+
 /** Writers of the same table serialize; readers are never blocked. */
 export function lockSql(spec: TargetSpec): string {
   const tables = spec.target === 'sales' ? 'series, sales' : q(spec.table);

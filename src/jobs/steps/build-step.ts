@@ -1,7 +1,10 @@
 import { type BuildPlan, planBuild } from '../../build/build-plan.js';
 import { abortBuild, finishBuild } from '../../build/finish-build.js';
 import { getSnapshot } from '../../build/snapshot-catalogue.js';
+import { parseDay } from '../../core/days.js';
 import { LarderError } from '../../db/errors.js';
+import { recordSnapshotMark } from '../change-log.js';
+import type { PlanNotes } from '../pipeline-stages.js';
 import type { WorkKit } from '../partitioned-job.js';
 import { runPartitioned } from '../partitioned-job.js';
 import { closeJob, findJob } from '../work-queue.js';
@@ -62,11 +65,19 @@ export async function fullBuild(env: StepEnv, kit: WorkKit): Promise<StepResult>
       partitionsMs: Math.round(buildMs),
     });
     await closeJob(env.db, run.jobId, 'done');
+    // The next run's fingerprint and refresh decision start from this mark (change-log.ts).
+    const planned = env.state.plans.get(set)!.plan as PlanNotes;
+    await recordSnapshotMark(env.db, info.snapshotId, {
+      mark: planned.changeMark,
+      cutoff: parseDay(env.cutoff)!,
+      priceBoundary: planned.priceBoundary,
+    });
     return {
       status: 'succeeded',
       rows: info.rowCount,
       details: {
         mode: 'full',
+        fingerprint: planned.fingerprint,
         snapshotId: info.snapshotId,
         table: info.tableName,
         partitions: run.progress.total,
@@ -136,6 +147,7 @@ async function refresh(
       rows: r.rowCount,
       details: {
         mode: 'incremental',
+        fingerprint: (env.state.plans.get(set)!.plan as PlanNotes).fingerprint,
         from: plan.previousCutoff,
         snapshotId: r.snapshotId,
         table: r.table,
@@ -191,6 +203,13 @@ export function buildStep(kit: WorkKit): PipelineStep {
           `build:${set}:${env.cutoff}:${inputs.definitionHash}:${inputs.dataFingerprint}`,
         );
         if (open?.status === 'open') await closeJob(env.db, open.jobId, 'done');
+        // Same fingerprint now: the snapshot holds every change up to the run's mark.
+        const planned = env.state.plans.get(set)!.plan as PlanNotes;
+        await recordSnapshotMark(env.db, current.snapshotId, {
+          mark: planned.changeMark,
+          cutoff: parseDay(env.cutoff)!,
+          priceBoundary: planned.priceBoundary,
+        });
         return {
           status: 'succeeded',
           rows: current.rowCount,
@@ -200,12 +219,11 @@ export function buildStep(kit: WorkKit): PipelineStep {
       }
       if (env.config.pipeline.incremental && !env.settings.force) {
         const tc = performance.now();
-        const planned = env.state.plans.get(set)!.plan as {
-          fingerprintParts?: BuildPlan['fingerprintParts'];
-        } | null;
+        const planned = env.state.plans.get(set)!.plan as PlanNotes;
         const basis = await checkRefresh(env.db, env.config, set, env.cutoff, {
           ...inputs,
-          fingerprintParts: planned?.fingerprintParts ?? {},
+          fingerprintParts: planned.fingerprintParts,
+          changeMark: planned.changeMark,
         });
         if (canRefresh(basis)) return refresh(env, kit, basis, performance.now() - tc);
         env.reporter.info(`build ${set}: full build (${basis.reason})`, { set, reason: basis.reason });
