@@ -1,6 +1,6 @@
 import { createRequire } from 'node:module';
 import { Worker } from 'node:worker_threads';
-import { type Schema, Table, tableToIPC } from 'apache-arrow';
+import { Bool, type Schema, Table, tableToIPC } from 'apache-arrow';
 import { type SeriesIds, toRecordBatch } from './arrow-batch.js';
 import type { HashingFile } from './hashing-file.js';
 import type { ExportBatch } from './snapshot-reader.js';
@@ -10,6 +10,33 @@ import type { ExportBatch } from './snapshot-reader.js';
  * encoded row group in (WebAssembly) memory, about 20-60 MB at 40 float columns.
  */
 export const PARQUET_ROW_GROUP_ROWS = 131_072;
+
+/**
+ * Numeric columns whose first batch is more than this share distinct values are written without
+ * a dictionary. The dictionary costs a hash lookup per value and pays only when values repeat;
+ * near-unique columns (exponentially weighted means, item encodings) get no smaller from it.
+ * Measured here on a demo snapshot (850k rows x 47 columns): dictionaries everywhere 2.8-3.7 s of
+ * encoding for 43.2 MB, with this rule 2.2-2.6 s for 40.7 MB. Deciding from the first batch keeps
+ * the file a function of the snapshot alone.
+ */
+export const DICTIONARY_MAX_SHARE = 0.5;
+
+/** Names of the numeric columns of a batch with more than `share` of its rows distinct values. */
+export function plainColumns(schema: Schema, b: ExportBatch, share = DICTIONARY_MAX_SHARE): string[] {
+  const out: string[] = [];
+  const limit = Math.floor(b.length * share);
+  // Column 0 is series_id, written as the item and store id strings (fields 0 and 1).
+  for (let c = 1; c < b.columns.length; c++) {
+    const field = schema.fields[c + 1]!;
+    if (field.type instanceof Bool) continue;
+    const col = b.columns[c] as ArrayLike<number>;
+    const nulls = b.nulls[c]!;
+    const seen = new Set<number>();
+    for (let i = 0; i < b.length && seen.size <= limit; i++) if (nulls[i] === 0) seen.add(col[i]!);
+    if (seen.size > limit) out.push(field.name);
+  }
+  return out;
+}
 
 /**
  * The worker's code, plain CommonJS so it needs no TypeScript loader: it feeds Arrow IPC batches
@@ -25,26 +52,31 @@ const input = new ReadableStream({
   start(c) { ctrl = c; },
   pull() { const w = wake; wake = null; if (w) w(); },
 }, { highWaterMark: 1 });
-const props = new pw.WriterPropertiesBuilder()
-  .setCompression(pw.Compression.SNAPPY)
-  .setMaxRowGroupSize(workerData.rowGroupRows)
-  .setCreatedBy(workerData.createdBy)
-  .setKeyValueMetadata(new Map(workerData.metadata))
-  .build();
-(async () => {
-  const out = await pw.transformParquetStream(input, props);
-  const reader = out.getReader();
-  for (;;) {
-    const { done, value } = await reader.read();
-    if (done) break;
-    const copy = value.slice();
-    parentPort.postMessage({ type: 'bytes', data: copy }, [copy.buffer]);
-  }
-  parentPort.postMessage({ type: 'done' });
-})().catch((err) => parentPort.postMessage({ type: 'error', message: String((err && err.message) || err) }));
+// The writer starts with the first batch, which says which columns go without a dictionary.
+function start(plain) {
+  let b = new pw.WriterPropertiesBuilder()
+    .setCompression(pw.Compression.SNAPPY)
+    .setMaxRowGroupSize(workerData.rowGroupRows)
+    .setCreatedBy(workerData.createdBy)
+    .setKeyValueMetadata(new Map(workerData.metadata));
+  for (const name of plain) b = b.setColumnDictionaryEnabled(name, false);
+  (async () => {
+    const out = await pw.transformParquetStream(input, b.build());
+    const reader = out.getReader();
+    for (;;) {
+      const { done, value } = await reader.read();
+      if (done) break;
+      const copy = value.slice();
+      parentPort.postMessage({ type: 'bytes', data: copy }, [copy.buffer]);
+    }
+    parentPort.postMessage({ type: 'done' });
+  })().catch((err) => parentPort.postMessage({ type: 'error', message: String((err && err.message) || err) }));
+}
+let started = false;
 parentPort.on('message', async (m) => {
   try {
-    if (m.type === 'end') { ctrl.close(); return; }
+    if (m.type === 'end') { if (!started) { started = true; start([]); } ctrl.close(); return; }
+    if (!started) { started = true; start(m.plain); }
     const table = pw.Table.fromIPCStream(new Uint8Array(m.data));
     try { for (const rb of table.recordBatches()) ctrl.enqueue(rb); } finally { table.free(); }
     while ((ctrl.desiredSize ?? 1) <= 0) await new Promise((r) => { wake = r; });
@@ -78,6 +110,7 @@ export class ParquetSink {
   private readonly done: Promise<void>;
   private inFlight = false;
   private finished = false;
+  private plain: string[] | null = null;
 
   constructor(
     private readonly file: HashingFile,
@@ -144,11 +177,14 @@ export class ParquetSink {
   /** Encodes one batch as Arrow IPC here and hands it over once the previous one was taken. */
   async write(b: ExportBatch): Promise<void> {
     this.check();
+    this.plain ??= plainColumns(this.schema, b);
     const ipc = tableToIPC(new Table([toRecordBatch(this.schema, this.ids, b)]), 'stream');
     const own = ipc.byteOffset === 0 && ipc.byteLength === ipc.buffer.byteLength ? ipc : ipc.slice();
     await this.previous();
     this.inFlight = true;
-    this.worker.postMessage({ type: 'batch', data: own.buffer }, [own.buffer as ArrayBuffer]);
+    this.worker.postMessage({ type: 'batch', data: own.buffer, plain: this.plain }, [
+      own.buffer as ArrayBuffer,
+    ]);
   }
 
   async finish(): Promise<void> {

@@ -86,6 +86,34 @@ describe('Parquet', () => {
     expect(groups.getRowObjects()[0]!.g).toBeGreaterThan(0);
   });
 
+  test('dictionaries only on columns with few distinct values', async () => {
+    const { db, config } = t();
+    const out = join(dir, 'daily-dict.parquet');
+    await exportSnapshot(db, config, { set: 'daily', cutoff: '2024-01-31', out });
+    // DuckDB's parquet_metadata lists each column chunk's encodings as the file records them
+    // (Parquet format: RLE_DICTIONARY / PLAIN_DICTIONARY mark dictionary-encoded pages).
+    const r = await duck.runAndReadAll(
+      `SELECT path_in_schema AS col, string_agg(DISTINCT encodings, ',') AS enc
+       FROM parquet_metadata('${out}') GROUP BY 1`,
+    );
+    const enc = new Map(r.getRowObjects().map((o) => [String(o.col), String(o.enc)]));
+    const dict = (c: string) => /DICTIONARY/.test(enc.get(c) ?? '');
+    // The first batch is 65,536 rows: lag_7 has more distinct values than half of them, price_ratio
+    // and the ids far fewer (counted in PostgreSQL below, not assumed).
+    const counts = (
+      await db.query<{ lag: number; ratio: number }>(
+        `SELECT count(DISTINCT lag_7)::int AS lag, count(DISTINCT price_ratio)::int AS ratio
+         FROM (SELECT lag_7, price_ratio FROM snap_daily ORDER BY series_id, day LIMIT 65536) f`,
+      )
+    ).rows[0]!;
+    expect(counts.lag).toBeGreaterThan(32768);
+    expect(counts.ratio).toBeLessThan(32768);
+    expect(dict('lag_7')).toBe(false);
+    expect(dict('price_ratio')).toBe(true);
+    expect(dict('store_id')).toBe(true);
+    expect(dict('item_id')).toBe(true);
+  });
+
   test('further exports are byte-identical and the manifest describes the file', async () => {
     const { db, config } = t();
     const a = await exportSnapshot(db, config, {
