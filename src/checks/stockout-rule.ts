@@ -72,9 +72,30 @@ export function classifyZeroRuns(
   units: ArrayLike<number>,
   params: StockoutParams = DEFAULT_STOCKOUT_PARAMS,
 ): ZeroRun[] {
+  return scanZeroRuns(units, params, true);
+}
+
+/**
+ * The runs the stock-out check reports: `classifyZeroRuns(units, params)` keeping only the
+ * stock-outs and the open runs already past k*, in the same order with the same values. Faster
+ * on slow sellers' hundreds of short runs: a run of `k` zeros after mean `mu` cannot reach k*
+ * when k mu < 0.99 (-ln alpha), since the zero chance is at least the Poisson e^-mu (the
+ * negative binomial's (r/(r+mu))^r = e^(-r ln(1 + mu/r)) and ln(1 + x) <= x), so p0^k > alpha^0.99.
+ * Such runs are passed over without computing p0 or k*.
+ */
+export function reportedZeroRuns(
+  units: ArrayLike<number>,
+  params: StockoutParams = DEFAULT_STOCKOUT_PARAMS,
+): ZeroRun[] {
+  return scanZeroRuns(units, params, false);
+}
+
+function scanZeroRuns(units: ArrayLike<number>, params: StockoutParams, all: boolean): ZeroRun[] {
   const n = units.length;
   const runs: ZeroRun[] = [];
   const { alpha, lookback, minHistory } = params;
+  // k x mu below this: the run cannot reach k* (see reportedZeroRuns); the 1% covers rounding.
+  const unreachable = -0.99 * Math.log(alpha);
   let firstSale = -1;
   for (let i = 0; i < n; i++) {
     if ((units[i] as number) > 0) {
@@ -101,6 +122,7 @@ export function classifyZeroRuns(
     while (i < n && units[i] === 0) i++;
     const end = i - 1;
     if (firstSale < 0 || start < firstSale) {
+      if (!all) continue;
       runs.push(
         run(start, end, 'pre-launch', Number.NaN, Number.NaN, Number.NaN, Number.POSITIVE_INFINITY, -1),
       );
@@ -122,6 +144,7 @@ export function classifyZeroRuns(
     }
     const open = end === n - 1;
     if (cnt < minHistory) {
+      if (!all) continue;
       runs.push(
         run(
           start,
@@ -137,6 +160,7 @@ export function classifyZeroRuns(
       continue;
     }
     const mean = sum / cnt;
+    if (!all && (end - start + 1) * mean < unreachable) continue;
     // Sample variance; sums of integer units are exact in doubles, so no drift from sliding.
     const variance = cnt > 1 ? Math.max(0, (sumSq - (sum * sum) / cnt) / (cnt - 1)) : 0;
     const p0 = zeroProbability(mean, variance);
@@ -145,7 +169,8 @@ export function classifyZeroRuns(
     const kind: ZeroRunKind = open ? 'open' : reached ? 'stockout' : 'plausible';
     // Flagged before the window reaches these days, so they never enter later runs' history.
     if (kind === 'stockout') flagged.fill(1, start, end + 1);
-    runs.push(run(start, end, kind, mean, variance, p0, kStar, reached ? start + kStar - 1 : -1));
+    if (all || reached)
+      runs.push(run(start, end, kind, mean, variance, p0, kStar, reached ? start + kStar - 1 : -1));
   }
   return runs;
 }

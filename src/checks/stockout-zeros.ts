@@ -2,7 +2,7 @@ import { z } from 'zod';
 import { formatDay } from '../core/days.js';
 import { checkParams, defineCheck, intAtLeast, probability } from './check-definition.js';
 import type { FindingDraft, StockoutDetails } from './finding.js';
-import { classifyZeroRuns, DEFAULT_STOCKOUT_PARAMS, type ZeroRun } from './stockout-rule.js';
+import { DEFAULT_STOCKOUT_PARAMS, reportedZeroRuns, type ZeroRun } from './stockout-rule.js';
 
 export const stockoutZerosParams = checkParams(['stockout', 'open-zero-run', 'pre-launch', 'never-sold'], {
   /** Per-run false-alarm level (DESIGN.md: 1e-6, since a chain tests hundreds of thousands of runs). */
@@ -81,8 +81,7 @@ export const stockoutZeros = defineCheck({
             });
           }
         }
-        for (const r of classifyZeroRuns(u, rule)) {
-          if (r.kind !== 'stockout' && !(r.kind === 'open' && r.detectable >= 0)) continue;
+        for (const r of reportedZeroRuns(u, rule)) {
           const len = r.end - r.start + 1;
           const first = s.firstDay + r.start;
           const last = s.firstDay + r.end;

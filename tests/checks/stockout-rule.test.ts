@@ -4,6 +4,7 @@ import { describe, expect, test } from 'vitest';
 import {
   classifyZeroRuns,
   criticalRunLength,
+  reportedZeroRuns,
   type StockoutParams,
   zeroProbability,
 } from '../../src/checks/stockout-rule.js';
@@ -254,5 +255,30 @@ test('the sliding-window implementation agrees with a re-scanning one (fast-chec
       expect(got).toEqual(naive(units, p));
     }),
     { numRuns: 300 },
+  );
+});
+
+test('reportedZeroRuns is classifyZeroRuns keeping stock-outs and open runs past k* (fast-check)', () => {
+  // Slow sellers (many short runs the Poisson bound passes over) and faster ones, with gaps.
+  const day = fc.oneof(
+    { weight: 3, arbitrary: fc.integer({ min: 0, max: 3 }) },
+    { weight: 2, arbitrary: fc.integer({ min: 0, max: 40 }) },
+    { weight: 4, arbitrary: fc.constant(0) },
+    { weight: 1, arbitrary: fc.constant(Number.NaN) },
+  );
+  fc.assert(
+    fc.property(
+      fc.array(day, { maxLength: 300 }),
+      fc.constantFrom(1e-6, 1e-3, 0.05, 0.5),
+      fc.integer({ min: 7, max: 56 }),
+      (units, alpha, lookback) => {
+        const p: StockoutParams = { alpha, lookback, minHistory: 3 };
+        const all = classifyZeroRuns(units, p).filter(
+          (r) => r.kind === 'stockout' || (r.kind === 'open' && r.detectable >= 0),
+        );
+        expect(reportedZeroRuns(units, p)).toEqual(all);
+      },
+    ),
+    { numRuns: 500 },
   );
 });
