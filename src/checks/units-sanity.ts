@@ -50,6 +50,85 @@ export function spikeScore(
   return { z: (x - median) / Math.max(scale, minScale), median, mad };
 }
 
+/** A day of a series whose modified z against its trailing window is above the threshold. */
+export interface UnitsSpike {
+  /** Index in the series array. */
+  readonly day: number;
+  readonly score: SpikeScore;
+}
+
+const NO_SPIKES: readonly UnitsSpike[] = Object.freeze([]);
+
+/**
+ * Days of a dense daily series (NaN = no row) whose `spikeScore` against the stored days among
+ * the previous `window` days exceeds `spikeThreshold`, judged once at least `minHistory` of them
+ * are stored. `win` and `scratch` are work space of at least `window` values.
+ *
+ * Cheap bounds rule out almost every day before a median is computed. Running count, sum and
+ * sum of squares of the window give the mean and sigma; since the median lies within one sigma
+ * of the mean, x <= mean - sigma + T x minScale cannot be a spike. A spike needs
+ * x - median > T x minScale, and counting the window days v with x - v > T x minScale settles
+ * that without sorting: x - v falls as v grows, so the median passes when more than half of the
+ * days do and fails when fewer than half do; only an even window split exactly in half needs
+ * the median itself. The few days left get the exact median and MAD.
+ */
+export function unitsSpikes(
+  u: ArrayLike<number>,
+  p: Pick<UnitsSanityParams, 'spikeThreshold' | 'window' | 'minHistory' | 'minScale'>,
+  win: Float64Array,
+  scratch: Float64Array,
+): readonly UnitsSpike[] {
+  const n = u.length;
+  const w = p.window;
+  const limit = p.spikeThreshold * p.minScale;
+  let out: UnitsSpike[] | undefined;
+  let cnt = 0;
+  let sum = 0;
+  let sumSq = 0;
+  for (let d = 0; d < n; d++) {
+    if (d > 0) {
+      const add = u[d - 1] as number;
+      if (!Number.isNaN(add)) {
+        cnt++;
+        sum += add;
+        sumSq += add * add;
+      }
+      if (d - 1 - w >= 0) {
+        const rem = u[d - 1 - w] as number;
+        if (!Number.isNaN(rem)) {
+          cnt--;
+          sum -= rem;
+          sumSq -= rem * rem;
+        }
+      }
+    }
+    const x = u[d] as number;
+    if (Number.isNaN(x) || cnt < p.minHistory) continue;
+    const mean = sum / cnt;
+    const sd = Math.sqrt(Math.max(0, sumSq / cnt - mean * mean));
+    if (x <= mean - sd + limit) continue;
+    const from = Math.max(0, d - w);
+    let below = 0;
+    for (let j = from; j < d; j++) if (x - (u[j] as number) > limit) below++; // NaN compares false
+    const half = cnt >> 1;
+    if (below < half || (cnt % 2 === 1 && below === half)) continue;
+    let m = 0;
+    for (let j = from; j < d; j++) {
+      const v = u[j] as number;
+      if (!Number.isNaN(v)) win[m++] = v;
+    }
+    if (below === half) {
+      for (let j = 0; j < m; j++) scratch[j] = win[j]!;
+      if (x - medianInPlace(scratch, m) <= limit) continue;
+    }
+    const score = spikeScore(x, win, m, p.minScale, scratch);
+    if (!(score.z > p.spikeThreshold)) continue;
+    out ??= [];
+    out.push({ day: d, score });
+  }
+  return out ?? NO_SPIKES;
+}
+
 /** Negative units (block) and single-day spikes against the trailing weeks (info: may be a promotion). */
 export const unitsSanity = defineCheck({
   name: 'units-sanity',
@@ -101,43 +180,10 @@ export const unitsSanity = defineCheck({
                 : `negative units on ${days} days ${formatDay(s.firstDay + start)}..${formatDay(s.firstDay + i - 1)} (lowest ${min})`,
           });
         }
-        // Spikes. Running count/sum/sum of squares of the window give the mean and sigma; since
-        // the median lies within one sigma of the mean, x <= mean - sigma + T * minScale cannot
-        // be a spike, and the exact median/MAD is computed only for the few days that pass.
-        const w = p.window;
-        const limit = p.spikeThreshold * p.minScale;
-        let cnt = 0;
-        let sum = 0;
-        let sumSq = 0;
-        for (let d = 0; d < n; d++) {
-          if (d > 0) {
-            const add = u[d - 1]!;
-            if (!Number.isNaN(add)) {
-              cnt++;
-              sum += add;
-              sumSq += add * add;
-            }
-            if (d - 1 - w >= 0) {
-              const rem = u[d - 1 - w]!;
-              if (!Number.isNaN(rem)) {
-                cnt--;
-                sum -= rem;
-                sumSq -= rem * rem;
-              }
-            }
-          }
-          const x = u[d]!;
-          if (Number.isNaN(x) || cnt < p.minHistory) continue;
-          const mean = sum / cnt;
-          const sd = Math.sqrt(Math.max(0, sumSq / cnt - mean * mean));
-          if (x <= mean - sd + limit) continue;
-          let m = 0;
-          for (let j = Math.max(0, d - w); j < d; j++) if (!Number.isNaN(u[j]!)) win[m++] = u[j]!;
-          // The median alone rules out most of the rest: a spike needs x - median > T x minScale.
-          for (let j = 0; j < m; j++) scratch[j] = win[j]!;
-          if (x - medianInPlace(scratch, m) <= limit) continue;
-          const score = spikeScore(x, win, m, p.minScale, scratch);
-          if (!(score.z > p.spikeThreshold)) continue;
+        for (const sp of unitsSpikes(u, p, win, scratch)) {
+          const x = u[sp.day]!;
+          const d = sp.day;
+          const score = sp.score;
           drafts.push({
             code: 'units-spike',
             seriesId: s.seriesId,
