@@ -103,31 +103,29 @@ export async function runSalesPass(
   weekStart: (day: number) => number,
 ): Promise<SalesPassResult> {
   const totals = new DayAccumulator();
-  let days = new Int32Array(4096);
-  let units = new Int32Array(4096);
+  // Each series is written straight into its dense array as its rows arrive in day order: days
+  // without a row are filled with NaN as the next row passes them.
+  let dense = new Float64Array(4096);
+  let first = 0;
+  let last = -1;
   let n = 0;
   let current = -1;
-  let dense = new Float64Array(4096);
   let rows = 0;
   let series = 0;
 
   const emit = () => {
     if (n === 0) return;
     series++;
-    const first = days[0]!;
-    const len = days[n - 1]! - first + 1;
-    if (dense.length < len) dense = new Float64Array(Math.max(len, dense.length * 2));
-    const view = dense.subarray(0, len);
-    view.fill(Number.NaN);
-    for (let i = 0; i < n; i++) view[days[i]! - first] = units[i]!;
+    const view = dense.subarray(0, last + 1);
+    const firstDay = first;
     let sold: Int32Array | undefined;
     const s: SeriesView = {
       seriesId: current,
-      firstDay: first,
+      firstDay,
       units: view,
       rows: n,
       soldWeeks: () => {
-        sold ??= soldWeekStarts(first, view, weekStart);
+        sold ??= soldWeekStarts(firstDay, view, weekStart);
         return sold;
       },
     };
@@ -141,23 +139,25 @@ export async function runSalesPass(
     rows += batch.length;
     for (let i = 0; i < batch.length; i++) {
       const s = sid[i]!;
+      const d = day[i]!;
       if (s !== current) {
         emit();
         current = s;
+        first = d;
+        last = -1;
         n = 0;
       }
-      if (n === days.length) {
-        const d2 = new Int32Array(n * 2);
-        d2.set(days);
-        days = d2;
-        const u2 = new Int32Array(n * 2);
-        u2.set(units);
-        units = u2;
+      const off = d - first;
+      if (off >= dense.length) {
+        const next = new Float64Array(Math.max(off + 1, dense.length * 2));
+        next.set(dense.subarray(0, last + 1));
+        dense = next;
       }
-      days[n] = day[i]!;
-      units[n] = u[i]!;
+      for (let k = last + 1; k < off; k++) dense[k] = Number.NaN;
+      dense[off] = u[i]!;
+      if (off > last) last = off;
       n++;
-      totals.add(day[i]!, u[i]!);
+      totals.add(d, u[i]!);
     }
   }
   emit();
