@@ -155,6 +155,17 @@ function allocColumn(t: CopyType, n: number): Column {
 }
 
 const decoder = new TextDecoder();
+/** Bytes of a non-NULL value of each type in binary COPY; 0 for variable width. */
+const WIDTH: Record<CopyType, number> = {
+  int2: 2,
+  int4: 4,
+  int8: 8,
+  float4: 4,
+  float8: 8,
+  date: 4,
+  bool: 1,
+  text: 0,
+};
 
 /**
  * Decodes a binary COPY stream into columnar batches of up to `batchSize` rows. int2/int4/date
@@ -175,6 +186,7 @@ export async function* readCopyBinary(
   });
   let cur = fresh();
   let n = 0;
+  const fixedMax = types.every((t) => WIDTH[t] > 0) ? types.reduce((a, t) => a + 4 + WIDTH[t], 2) : -1;
 
   for await (const chunk of source) {
     pending = pending.length
@@ -201,23 +213,26 @@ export async function* readCopyBinary(
       }
       if (fields !== types.length)
         throw new Error(`binary COPY row has ${fields} fields, expected ${types.length}`);
-      // Make sure the whole tuple is buffered before decoding any of it.
+      // Make sure the whole tuple is buffered before decoding any of it (a row of fixed-width
+      // fields is never longer than `fixedMax`, so away from the chunk's end no walk is needed).
       let q = p + 2;
-      let complete = true;
-      for (let f = 0; f < fields; f++) {
-        if (q + 4 > len) {
-          complete = false;
-          break;
+      if (fixedMax < 0 || p + fixedMax > len) {
+        let complete = true;
+        for (let f = 0; f < fields; f++) {
+          if (q + 4 > len) {
+            complete = false;
+            break;
+          }
+          const l = dv.getInt32(q);
+          q += 4 + Math.max(l, 0);
+          if (q > len) {
+            complete = false;
+            break;
+          }
         }
-        const l = dv.getInt32(q);
-        q += 4 + Math.max(l, 0);
-        if (q > len) {
-          complete = false;
-          break;
-        }
+        if (!complete) break;
+        q = p + 2;
       }
-      if (!complete) break;
-      q = p + 2;
       for (let f = 0; f < fields; f++) {
         const l = dv.getInt32(q);
         q += 4;
@@ -227,7 +242,10 @@ export async function* readCopyBinary(
           if (col instanceof Float64Array) col[n] = Number.NaN;
           continue;
         }
-        switch (types[f]) {
+        const t = types[f]!;
+        if (l !== WIDTH[t] && WIDTH[t] > 0)
+          throw new Error(`binary COPY field ${f + 1} has ${l} bytes, a ${t} has ${WIDTH[t]}`);
+        switch (t) {
           case 'int2':
             (col as Int32Array)[n] = dv.getInt16(q);
             break;

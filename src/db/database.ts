@@ -1,6 +1,7 @@
 /**
  * The one small interface every stage talks to, so the same code runs on a PostgreSQL server
- * (node-postgres + pg-copy-streams) and on the embedded PGlite (its own COPY via /dev/blob).
+ * (node-postgres; COPY in through pg-copy-streams, COPY out through src/db/copy-out.ts) and on
+ * the embedded PGlite (its own COPY via /dev/blob).
  */
 export interface QueryResult<R> {
   readonly rows: R[];

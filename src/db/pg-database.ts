@@ -1,7 +1,8 @@
 import { Readable } from 'node:stream';
 import { pipeline } from 'node:stream/promises';
 import pg from 'pg';
-import { from as copyFromStream, to as copyToStream } from 'pg-copy-streams';
+import { from as copyFromStream } from 'pg-copy-streams';
+import { copyOut } from './copy-out.js';
 import { type Db, type DbSession, type QueryResult, quoteIdent } from './database.js';
 import { valueParsers } from './type-parsers.js';
 
@@ -29,17 +30,17 @@ function sessionOn(client: pg.PoolClient | pg.Client): DbSession {
     },
     copyTo(copySql) {
       return (async function* () {
-        const stream = client.query(copyToStream(copySql));
+        const copy = copyOut(client, copySql);
         let finished = false;
         try {
-          yield* stream.iterator({ destroyOnReturn: false });
+          yield* copy.chunks;
           finished = true;
         } finally {
           // A consumer that stops early would leave this connection in COPY mode, and the next
           // statement on it would hang: read the rest before the session goes on.
-          if (!finished && !stream.destroyed) {
+          if (!finished) {
             try {
-              for await (const _ of stream);
+              await copy.drain();
             } catch {
               // the error the consumer already saw (or its own early exit) is the one that counts
             }
@@ -89,15 +90,14 @@ export function openPgDatabase(url: string, schema: string, poolSize = 4): Db {
       return (async function* () {
         const client = await pool.connect();
         client.on('error', ignoreError);
-        const stream = client.query(copyToStream(sql));
+        const copy = copyOut(client, sql);
         let finished = false;
         try {
-          yield* stream.iterator({ destroyOnReturn: false });
+          yield* copy.chunks;
           finished = true;
         } finally {
           // Stopped early, the discarded connection may still report errors: keep ignoring them.
-          if (!finished) stream.on('error', ignoreError);
-          else client.off('error', ignoreError);
+          if (finished) client.off('error', ignoreError);
           // Stopped early, the connection is still mid-COPY: discard it rather than drain it.
           client.release(!finished);
         }
