@@ -186,6 +186,50 @@ class WindowState {
     }
   }
 
+  /**
+   * After a rebuild of the window [J - w + 1, J] (index j = day - origin): lays the weighted-mean
+   * queue on blocks of w days aligned to absolute days, as the steady state keeps it (the back
+   * always starts on a block start, so every flip moves exactly one block): the front holds the
+   * part of the previous block in the window, with suffix sums from that block's last day down,
+   * the back the current block from its start, by Horner. Every sum is then the same sequence
+   * of operations whichever day the pass started on, so a refresh that starts later gives the
+   * full build's values bit for bit.
+   */
+  alignEwm(J: number, origin: number): void {
+    const w = this.w;
+    const first = J - w + 1;
+    const K = J - ((((origin + J) % w) + w) % w);
+    let a = 0;
+    let b = 0;
+    for (let k = K - 1; k >= first; k--) {
+      if (this.counted[k] === 1) {
+        const f = this.pw[K - 1 - k]!;
+        a += this.x[k]! * f;
+        b += f;
+      }
+      this.fA[k] = a;
+      this.fB[k] = b;
+    }
+    this.fStart = first;
+    this.fEnd = K - 1;
+    this.bStart = K;
+    this.bEnd = K - 1;
+    this.bA = this.bB = 0;
+    for (let j = K; j <= J; j++) {
+      const valid = this.counted[j] === 1;
+      const y = valid ? this.x[j]! : 0;
+      const c = valid ? 1 : 0;
+      if (this.bEnd < this.bStart) {
+        this.bA = y;
+        this.bB = c;
+      } else {
+        this.bA = this.bA * this.lambda + y;
+        this.bB = this.bB * this.lambda + c;
+      }
+      this.bEnd = j;
+    }
+  }
+
   ewm(j: number): number {
     let a = this.bEnd >= this.bStart ? this.bA : 0;
     let b = this.bEnd >= this.bStart ? this.bB : 0;
@@ -242,6 +286,7 @@ export function windowStats(
     if (rebuild) {
       st.reset();
       for (let j = J - w + 1; j <= J; j++) st.add(j, mf === null || mf[j]! > e);
+      if (kEwm >= 0) st.alignEwm(J, origin);
     } else {
       st.remove(J - w);
       st.add(J, mf === null || mf[J]! > e);
