@@ -123,13 +123,14 @@ export async function stageChainGroups(
         let count = 0;
         for (let d = 0; d < len; d++) if (n[g * len + d]! > 0) count++;
         const buf = Buffer.allocUnsafe(count * 16);
+        const dv = new DataView(buf.buffer, buf.byteOffset, buf.byteLength);
         let p = 0;
         for (let d = 0; d < len; d++) {
           const i = g * len + d;
           if (n[i]! === 0) continue;
-          buf.writeInt32BE(d, p);
-          buf.writeDoubleBE(total[i]!, p + 4);
-          buf.writeInt32BE(n[i]!, p + 12);
+          dv.setInt32(p, d);
+          dv.setFloat64(p + 4, total[i]!);
+          dv.setInt32(p + 12, n[i]!);
           p += 16;
         }
         const [k1, k2] = keys[g]!;

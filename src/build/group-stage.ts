@@ -77,11 +77,12 @@ export async function readStagedGroups(
       const total = new Float64Array(len);
       const n = new Float64Array(len);
       // Offsets count from the staging's first day, which is `base` (the plan's groupFrom).
+      const dv = new DataView(days.buffer, days.byteOffset, days.byteLength);
       for (let p = 0; p + 16 <= days.length; p += 16) {
-        const i = days.readInt32BE(p);
+        const i = dv.getInt32(p);
         if (i >= 0 && i < len) {
-          total[i] = days.readDoubleBE(p + 4);
-          n[i] = days.readInt32BE(p + 12);
+          total[i] = dv.getFloat64(p + 4);
+          n[i] = dv.getInt32(p + 12);
         }
       }
       byKey.set(key, { base, total, n });

@@ -31,16 +31,18 @@ export class SnapshotEncoder {
   private flush(): void {
     if (this.pos === 0) return;
     this.ready.push(this.buf.subarray(0, this.pos));
-    this.buf = new Uint8Array(Math.max(this.chunkSize, this.rowMax) + this.rowMax);
-    this.view = new DataView(this.buf.buffer);
+    // Every byte handed on is written first, so the next chunk needs no zero fill.
+    this.buf = Buffer.allocUnsafe(Math.max(this.chunkSize, this.rowMax) + this.rowMax);
+    this.view = new DataView(this.buf.buffer, this.buf.byteOffset, this.buf.byteLength);
     this.pos = 0;
   }
 
   /** Writes every row of one series; `cols[c][r]` is feature c of row r (NaN = NULL). */
   series(seriesId: number, rows: SeriesRows, cols: readonly Float64Array[]): void {
     const F = this.features;
-    const origin = rows.origin;
-    for (let r = 0; r < rows.n; r++) {
+    const { origin, day, isPredict, label } = rows;
+    const n = rows.n;
+    for (let r = 0; r < n; r++) {
       if (this.pos + this.rowMax > this.buf.length - 2) this.flush();
       const v = this.view;
       let p = this.pos;
@@ -48,7 +50,7 @@ export class SnapshotEncoder {
       v.setInt32(p + 2, 4);
       v.setInt32(p + 6, seriesId);
       v.setInt32(p + 10, 4);
-      v.setInt32(p + 14, rows.day[r]! - PG_EPOCH_DAYS);
+      v.setInt32(p + 14, day[r]! - PG_EPOCH_DAYS);
       p += 18;
       if (origin) {
         v.setInt32(p, 4);
@@ -58,16 +60,16 @@ export class SnapshotEncoder {
         v.setInt32(p, -1);
         p += 4;
       }
-      const predict = rows.isPredict[r] === 1;
+      const predict = isPredict[r] === 1;
       v.setInt32(p, 1);
-      this.buf[p + 4] = predict ? 1 : 0;
+      v.setUint8(p + 4, predict ? 1 : 0);
       p += 5;
       if (predict) {
         v.setInt32(p, -1);
         p += 4;
       } else {
         v.setInt32(p, 4);
-        v.setInt32(p + 4, rows.label[r]!);
+        v.setInt32(p + 4, label[r]!);
         p += 8;
       }
       for (let c = 0; c < F; c++) {

@@ -44,9 +44,21 @@ export function hierarchyColumnName(
 
 const UNSHARED: ReadonlySet<GroupLevel> = new Set(['item', 'item_region']);
 
+// Buffers for the groups that are not cached (one member series per store): their values and
+// statistics are used by one series and copied out before the next.
+let valuesBuf = new Float64Array(0);
+const statBufs: Float64Array[] = [];
+function scratch(k: number, n: number): Float64Array {
+  let b = statBufs[k];
+  if (!b || b.length < n) statBufs[k] = b = new Float64Array(Math.max(n, 2 * (b?.length ?? 0)));
+  return b.subarray(0, n);
+}
+
 /** Daily totals of a group as a series: NaN on days without any member row. */
-function groupValues(g: GroupSeries): DailyValues {
-  const v = new Float64Array(g.total.length);
+function groupValues(g: GroupSeries, reuse: boolean): DailyValues {
+  const len = g.total.length;
+  if (reuse && valuesBuf.length < len) valuesBuf = new Float64Array(Math.max(len, 2 * valuesBuf.length));
+  const v = reuse ? valuesBuf.subarray(0, len) : new Float64Array(len);
   for (let i = 0; i < v.length; i++) v[i] = g.n[i]! > 0 ? g.total[i]! : Number.NaN;
   return { base: g.base, values: v, maskFrom: null, maskEvents: null };
 }
@@ -64,15 +76,16 @@ function groupStats(
   const ck = `hier\u001f${level}\u001f${key}\u001f${entry.size}\u001f${entry.stats.join(',')}\u001f${entry.minDays}\u001f${entry.alpha}\u001f${lo}\u001f${hi}`;
   const hit = env.cache.get(ck) as Float64Array[] | undefined;
   if (hit) return hit;
-  const out = entry.stats.map(() => new Float64Array(hi - lo + 1));
+  const shared = !UNSHARED.has(level);
+  const out = entry.stats.map((_, k) => (shared ? new Float64Array(hi - lo + 1) : scratch(k, hi - lo + 1)));
   const spec = {
     size: entry.size,
     stats: entry.stats,
     minDays: entry.minDays ?? 1,
     alpha: entry.alpha ?? defaultAlpha(entry.size),
   };
-  windowStats(groupValues(g), spec, lo, hi, out);
-  if (!UNSHARED.has(level)) env.cache.set(ck, out);
+  windowStats(groupValues(g, !shared), spec, lo, hi, out);
+  if (shared) env.cache.set(ck, out);
   return out;
 }
 

@@ -69,31 +69,43 @@ export function priceRowStats(
   item: ItemPrices,
   dept: ReadonlyMap<number, ReadonlyMap<number, number>> | null,
   deptMean: (week: number) => number,
+  features: readonly PriceFeature[] = PRICE_FEATURES,
 ): PriceRowStats {
+  const out = features.map(() => new Float64Array(item.weeks.length));
+  fillPriceRows(item, dept, deptMean, features, out);
+  return { values: new Map(features.map((f, k) => [f, out[k]!])) };
+}
+
+const FEATURE_INDEX = new Map(PRICE_FEATURES.map((f, i) => [f, i]));
+
+/**
+ * Fills `out[k][i]` with `features[k]` as of price row i. Only the requested features are
+ * computed (a build asks for a few of the twelve, for every item of every store).
+ */
+function fillPriceRows(
+  item: ItemPrices,
+  dept: ReadonlyMap<number, ReadonlyMap<number, number>> | null,
+  deptMean: (week: number) => number,
+  features: readonly PriceFeature[],
+  out: readonly Float64Array[],
+): void {
   const { weeks, prices } = item;
   const n = weeks.length;
-  const col = () => new Float64Array(n);
-  const v = {
-    price: col(),
-    price_max: col(),
-    price_min: col(),
-    price_mean: col(),
-    price_std: col(),
-    price_rel_max: col(),
-    price_distinct: col(),
-    price_momentum_1w: col(),
-    price_momentum_4w: col(),
-    price_momentum_52w: col(),
-    dept_same_price: col(),
-    price_rel_dept: col(),
-  };
+  // Column of each feature (or undefined when not asked for), by the feature's fixed position.
+  const col: Array<Float64Array | undefined> = new Array(PRICE_FEATURES.length);
+  features.forEach((f, k) => {
+    col[FEATURE_INDEX.get(f)!] = out[k]!;
+  });
+  const [cPrice, cMax, cMin, cMean, cStd, cRelMax, cDistinct, cM1, cM4, cM52, cSame, cRelDept] = col;
+  const wantWelford = cMean !== undefined || cStd !== undefined;
+  const wantDept = cSame !== undefined || cRelDept !== undefined;
   let max = -Infinity;
   let min = Infinity;
   // Welford: prices are decimals, so running sums of squares would cancel for steady prices.
   let mean = 0;
   let m2 = 0;
   // Keys in ten-thousandths (prices have at most 4 decimals): small integers hash fast.
-  const seen = new Set<number>();
+  const seen = cDistinct ? new Set<number>() : null;
   let lo4 = 0;
   let lo52 = 0;
   // Prices carry at most 4 decimals: sums of ten-thousandths are exact integers, so the
@@ -104,32 +116,49 @@ export function priceRowStats(
   for (let i = 0; i < n; i++) {
     const p = prices[i]!;
     const wk = weeks[i]!;
-    v.price[i] = p;
+    if (cPrice) cPrice[i] = p;
     if (p > max) max = p;
     if (p < min) min = p;
-    const d = p - mean;
-    mean += d / (i + 1);
-    m2 += d * (p - mean);
+    if (wantWelford) {
+      const d = p - mean;
+      mean += d / (i + 1);
+      m2 += d * (p - mean);
+    }
     const tp = ticks(p);
-    seen.add(tp);
-    v.price_max[i] = max;
-    v.price_min[i] = min;
-    v.price_mean[i] = mean;
-    v.price_std[i] = i > 0 ? Math.sqrt(m2 / i) : Number.NaN;
-    v.price_rel_max[i] = p / max;
-    v.price_distinct[i] = seen.size;
-    v.price_momentum_1w[i] = i > 0 && weeks[i - 1] === wk - 7 ? p / prices[i - 1]! : Number.NaN;
-    sum4 += tp;
-    sum52 += tp;
-    while (weeks[lo4]! < wk - 21) sum4 -= ticks(prices[lo4++]!);
-    while (weeks[lo52]! < wk - 357) sum52 -= ticks(prices[lo52++]!);
-    v.price_momentum_4w[i] = p / (sum4 / 10000 / (i - lo4 + 1));
-    v.price_momentum_52w[i] = p / (sum52 / 10000 / (i - lo52 + 1));
-    const atWeek = dept?.get(wk);
-    v.dept_same_price[i] = atWeek ? (atWeek.get(tp) ?? 0) : Number.NaN;
-    v.price_rel_dept[i] = atWeek ? p / deptMean(wk) : Number.NaN;
+    if (seen) seen.add(tp);
+    if (cMax) cMax[i] = max;
+    if (cMin) cMin[i] = min;
+    if (cMean) cMean[i] = mean;
+    if (cStd) cStd[i] = i > 0 ? Math.sqrt(m2 / i) : Number.NaN;
+    if (cRelMax) cRelMax[i] = p / max;
+    if (cDistinct) cDistinct[i] = seen!.size;
+    if (cM1) cM1[i] = i > 0 && weeks[i - 1] === wk - 7 ? p / prices[i - 1]! : Number.NaN;
+    if (cM4) {
+      sum4 += tp;
+      while (weeks[lo4]! < wk - 21) sum4 -= ticks(prices[lo4++]!);
+      cM4[i] = p / (sum4 / 10000 / (i - lo4 + 1));
+    }
+    if (cM52) {
+      sum52 += tp;
+      while (weeks[lo52]! < wk - 357) sum52 -= ticks(prices[lo52++]!);
+      cM52[i] = p / (sum52 / 10000 / (i - lo52 + 1));
+    }
+    if (wantDept) {
+      const atWeek = dept?.get(wk);
+      if (cSame) cSame[i] = atWeek ? (atWeek.get(tp) ?? 0) : Number.NaN;
+      if (cRelDept) cRelDept[i] = atWeek ? p / deptMean(wk) : Number.NaN;
+    }
   }
-  return { values: new Map(Object.entries(v) as Array<[PriceFeature, Float64Array]>) };
+}
+
+// Per-feature buffers of price rows and the row index of each target day, reused from series
+// to series (compute copies out of them before it returns).
+const rowBufs: Float64Array[] = [];
+let idxBuf = new Int32Array(0);
+function rowBuf(k: number, n: number): Float64Array {
+  let b = rowBufs[k];
+  if (!b || b.length < n) rowBufs[k] = b = new Float64Array(Math.max(n, 2 * (b?.length ?? 0)));
+  return b;
 }
 
 /** Mean price of each department's items per week, from the price counts. */
@@ -204,12 +233,14 @@ export const prices = defineFamily<PricesParams>({
     const deptId = env.departmentOf?.get(s.itemId) ?? null;
     const dept = deptId === null ? null : (env.deptPrices?.get(deptId) ?? null);
     const means = deptId === null ? undefined : env.deptMeans?.get(deptId);
-    const stats = priceRowStats(item, dept, (wk) => means?.get(wk) ?? Number.NaN);
-    const idx = new Int32Array(rows.n);
+    const bufs = p.features.map((_, k) => rowBuf(k, item.weeks.length));
+    fillPriceRows(item, dept, (wk) => means?.get(wk) ?? Number.NaN, p.features, bufs);
+    if (idxBuf.length < rows.n) idxBuf = new Int32Array(Math.max(rows.n, 2 * idxBuf.length));
+    const idx = idxBuf;
     for (let r = 0; r < rows.n; r++)
       idx[r] = priceRowFor(item.weeks, rows.day[r]!, env.weekStart, env.priceBoundary);
     for (let c = 0; c < p.features.length; c++) {
-      const src = stats.values.get(p.features[c]!)!;
+      const src = bufs[c]!;
       const col = out[c]!;
       for (let r = 0; r < rows.n; r++) col[r] = idx[r]! >= 0 ? src[idx[r]!]! : Number.NaN;
     }

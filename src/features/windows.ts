@@ -58,9 +58,13 @@ export function windowSpec(e: WindowEntry) {
   return { size: e.size, stats: e.stats, minDays: e.minDays ?? 1, alpha: e.alpha ?? defaultAlpha(e.size) };
 }
 
-/** Window ends of every row for a gap, and their range. */
-export function rowEnds(rows: RowSet, gap: number): { ends: Int32Array; lo: number; hi: number } {
-  const ends = new Int32Array(rows.n);
+/** Window ends of every row for a gap, and their range; `into` (length >= n) is used when given. */
+export function rowEnds(
+  rows: RowSet,
+  gap: number,
+  into?: Int32Array,
+): { ends: Int32Array; lo: number; hi: number } {
+  const ends = into && into.length >= rows.n ? into : new Int32Array(rows.n);
   let lo = 2147483647;
   let hi = -2147483648;
   for (let r = 0; r < rows.n; r++) {
@@ -70,6 +74,21 @@ export function rowEnds(rows: RowSet, gap: number): { ends: Int32Array; lo: numb
     if (e > hi) hi = e;
   }
   return { ends, lo, hi };
+}
+
+// Per-window buffers reused from series to series (compute is synchronous and copies out of
+// them before returning): a build runs the windows of every series, so fresh arrays per entry
+// were a good share of its garbage.
+let endsBuf = new Int32Array(0);
+const statBufs: Float64Array[] = [];
+function scratchEnds(n: number): Int32Array {
+  if (endsBuf.length < n) endsBuf = new Int32Array(Math.max(n, 2 * endsBuf.length));
+  return endsBuf;
+}
+function scratchStat(k: number, n: number): Float64Array {
+  let b = statBufs[k];
+  if (!b || b.length < n) statBufs[k] = b = new Float64Array(Math.max(n, 2 * (b?.length ?? 0)));
+  return b.subarray(0, n);
 }
 
 /**
@@ -107,10 +126,10 @@ export const windows = defineFamily<WindowsParams>({
     };
     let c = 0;
     for (const entry of p) {
-      const { ends, lo, hi } = rowEnds(rows, entry.shift);
+      const { ends, lo, hi } = rowEnds(rows, entry.shift, scratchEnds(rows.n));
       const lead = entry.lead ?? 0;
       const span = hi - lo + 1;
-      const tmp = entry.stats.map(() => new Float64Array(span));
+      const tmp = entry.stats.map((_, k) => scratchStat(k, span));
       windowStats(input, windowSpec(entry), lo + lead, hi + lead, tmp);
       for (let k = 0; k < tmp.length; k++, c++) {
         const col = out[c]!;
