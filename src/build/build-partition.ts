@@ -8,6 +8,7 @@ import type { GroupSeries, PartitionEnv, SeriesInput } from '../features/family.
 import type { ResolvedFeatureSet } from '../features/feature-set.js';
 import type { GroupLevel } from '../features/group-levels.js';
 import { stockoutMask } from '../features/stockout-mask.js';
+import { type StockoutState, stockoutStateOf } from '../features/stockout-state.js';
 import { type BuildPlan, planFeatureSet } from './build-plan.js';
 import { computeSeriesFeatures, featureScratch } from './compute-series.js';
 import { readStagedGroups } from './group-stage.js';
@@ -22,6 +23,7 @@ import {
 } from './partition-input.js';
 import { type RowLayout, seriesRows, trainingOrigins } from './series-rows.js';
 import { SnapshotEncoder } from './snapshot-encoder.js';
+import { keepsStockoutStates, refreshReach, writeStockoutStates } from './stockout-states.js';
 
 export interface PartitionResult {
   readonly partition: string;
@@ -143,6 +145,7 @@ async function* snapshotRows(
   set: ResolvedFeatureSet,
   data: PartitionData,
   counts: { rows: number; train: number; computeMs: number },
+  states: Array<{ seriesId: number; state: StockoutState }> | null,
 ): AsyncGenerator<Uint8Array> {
   const C = day(plan.cutoff);
   const layout: RowLayout = {
@@ -161,10 +164,17 @@ async function* snapshotRows(
     set.shape.horizon +
     (layout.mode === 'shift' ? C - layout.from + 1 : layout.origins.length * set.shape.horizon);
   const scratch = featureScratch(set, maxRows);
+  const keepFrom = C + 1 - refreshReach(set);
   for (const x of data.series) {
     const t0 = performance.now();
     const rows = seriesRows(layout, data.base, x.units);
     const mask = set.stockout ? stockoutMask(data.base, x.units, C, set.stockout) : null;
+    // The rule's state at C lets the next incremental refresh read only the newest days.
+    if (states && set.stockout)
+      states.push({
+        seriesId: x.seriesId,
+        state: stockoutStateOf(data.base, x.units, mask, C, keepFrom, set.stockout),
+      });
     const input: SeriesInput = {
       seriesId: x.seriesId,
       cutoff: C,
@@ -241,11 +251,13 @@ export async function buildPartition(
     const data = await readPartition(tx, plan, set, partition);
     const readMs = performance.now() - t0;
     const counts = { rows: 0, train: 0, computeMs: 0 };
+    const states = keepsStockoutStates(set) ? [] : null;
     const t1 = performance.now();
     const copied = await tx.copyFrom(
       `COPY ${table} FROM STDIN (FORMAT binary)`,
-      snapshotRows(plan, set, data, counts),
+      snapshotRows(plan, set, data, counts, states),
     );
+    if (states) await writeStockoutStates(tx, plan.stagingTable, partition, states);
     const copyMs = performance.now() - t1;
     if (copied !== counts.rows) {
       throw new LarderError(

@@ -1,7 +1,15 @@
 import { randomBytes } from 'node:crypto';
 import { availableParallelism } from 'node:os';
 import { type BuildPlan, buildWindow, planFeatureSet, snapshotTableDdl } from '../build/build-plan.js';
-import { readPartition } from '../build/build-partition.js';
+import { type PartitionData, readPartition } from '../build/build-partition.js';
+import {
+  hasStockoutStates,
+  keepsStockoutStates,
+  moveStockoutStates,
+  readStockoutStates,
+  refreshReach,
+  writeStockoutStates,
+} from '../build/stockout-states.js';
 import { computeSeriesFeatures } from '../build/compute-series.js';
 import { dataFingerprint } from '../build/fingerprint.js';
 import { stageChainGroups } from '../build/chain-groups.js';
@@ -15,6 +23,7 @@ import { calendarCodes } from '../features/calendar.js';
 import type { SeriesInput } from '../features/family.js';
 import { resolveFeatureSet } from '../features/feature-set.js';
 import { stockoutMask } from '../features/stockout-mask.js';
+import { resumeStockoutMask, type StockoutState, stockoutStateOf } from '../features/stockout-state.js';
 import {
   type ChangeMark,
   changeInside,
@@ -57,6 +66,12 @@ export interface RefreshPlan {
   /** The change log before the run's fingerprint: no change may come after it before the finish. */
   readonly changeMark: ChangeMark;
   readonly priceBoundary: string;
+  /**
+   * The stock-out mask: `tail` resumes the rule from the previous snapshot's states and reads
+   * only the newest days; `whole` reads every series' whole history (no states kept yet);
+   * null: the set has no mask. Both keep states for the next refresh.
+   */
+  readonly stockout?: 'tail' | 'whole' | null;
   /** A build plan over the anchor days P+1 .. C+H only; its staging table receives the new rows. */
   readonly build: BuildPlan;
 }
@@ -181,6 +196,14 @@ export async function createRefreshPlan(db: Db, config: Config, basis: RefreshBa
     'refresh table',
   );
   const groupTable = w.chain.length ? `${delta}_g` : null;
+  const stockout = keepsStockoutStates(set)
+    ? (await hasStockoutStates(db, basis.previousTable, basis.previousCutoff))
+      ? 'tail'
+      : 'whole'
+    : null;
+  // With the rule's state carried over, the mask needs no more history than the features do.
+  const salesFrom =
+    stockout === 'tail' ? P + 1 - refreshReach(set) : stockout === 'whole' ? null : w.salesFrom;
   const partitions = (
     await db.query<{ store_id: string }>('SELECT DISTINCT store_id FROM series ORDER BY store_id')
   ).rows.map((r) => r.store_id);
@@ -219,7 +242,7 @@ export async function createRefreshPlan(db: Db, config: Config, basis: RefreshBa
     groupTable,
     chainLevels: w.chain,
     storeLevels: w.store,
-    salesFrom: w.salesFrom === null ? null : formatDay(w.salesFrom),
+    salesFrom: salesFrom === null ? null : formatDay(salesFrom),
     groupFrom: formatDay(w.groupFrom),
     priceBoundary: formatDay(w.priceBoundary),
     anchorLo: formatDay(w.anchorLo),
@@ -241,6 +264,7 @@ export async function createRefreshPlan(db: Db, config: Config, basis: RefreshBa
     fingerprintParts: basis.fingerprintParts,
     changeMark: basis.changeMark,
     priceBoundary: formatDay(w.priceBoundary),
+    stockout,
     build,
   };
 }
@@ -277,6 +301,40 @@ export async function refreshPartition(db: Db, plan: RefreshPlan, store: string)
     );
     const data = await readPartition(tx, b, set, store);
     const C = parseDay(b.cutoff)!;
+    const P = parseDay(plan.previousCutoff)!;
+    const keepFrom = C + 1 - refreshReach(set);
+    const carried = plan.stockout === 'tail' ? await readStockoutStates(tx, plan.previousTable, store) : null;
+    const states: Array<{ seriesId: number; state: StockoutState }> | null = plan.stockout ? [] : null;
+    const maskOf = (x: PartitionData['series'][number]) => {
+      if (!set.stockout) return null;
+      if (carried) {
+        let st = carried.get(x.seriesId);
+        if (!st) {
+          // Only a series first sold after P has no state; any other means the states are stale.
+          if (x.firstDay <= P)
+            throw new LarderError(
+              'STATE_MISSING',
+              `series ${x.seriesId} has no stock-out state at ${plan.previousCutoff}: build in full (--force)`,
+            );
+          st = {
+            cutoff: P,
+            firstSale: null,
+            openStart: null,
+            openKStar: Number.POSITIVE_INFINITY,
+            runs: new Int32Array(0),
+          };
+        }
+        const r = resumeStockoutMask(st, data.base, x.units, C, keepFrom, set.stockout);
+        states!.push({ seriesId: x.seriesId, state: r.state });
+        return r.mask;
+      }
+      const mask = stockoutMask(data.base, x.units, C, set.stockout);
+      states?.push({
+        seriesId: x.seriesId,
+        state: stockoutStateOf(data.base, x.units, mask, C, keepFrom, set.stockout),
+      });
+      return mask;
+    };
     const layout = {
       mode: 'shift' as const,
       cutoff: C,
@@ -290,7 +348,7 @@ export async function refreshPartition(db: Db, plan: RefreshPlan, store: string)
       const w = new CopyBinaryWriter();
       for (const x of data.series) {
         const r = seriesRows(layout, data.base, x.units);
-        const mask = set.stockout ? stockoutMask(data.base, x.units, C, set.stockout) : null;
+        const mask = maskOf(x);
         const input: SeriesInput = {
           seriesId: x.seriesId,
           cutoff: C,
@@ -320,6 +378,7 @@ export async function refreshPartition(db: Db, plan: RefreshPlan, store: string)
       yield* w.end();
     }
     const copied = await tx.copyFrom(`COPY ${table} FROM STDIN (FORMAT binary)`, chunks());
+    if (states) await writeStockoutStates(tx, b.stagingTable, store, states);
     if (copied !== rows)
       throw new LarderError(
         'COPY_COUNT',
@@ -434,6 +493,7 @@ export async function finishRefresh(
       cutoff: parseDay(plan.cutoff)!,
       priceBoundary: parseDay(plan.priceBoundary)!,
     });
+    if (plan.stockout) await moveStockoutStates(tx, b.stagingTable, plan.previousTable);
     await tx.exec(`DROP TABLE ${delta}`);
     if (b.groupTable) await tx.exec(`DROP TABLE IF EXISTS ${quoteIdent(b.groupTable)}`);
     return {
@@ -450,6 +510,7 @@ export async function finishRefresh(
 /** Drops a refresh's own tables (a plan that will not be finished). */
 export async function abortRefresh(db: Db, plan: RefreshPlan): Promise<void> {
   await db.exec(`DROP TABLE IF EXISTS ${quoteIdent(plan.build.stagingTable)}`);
+  await db.query('DELETE FROM stockout_states WHERE table_name = $1', [plan.build.stagingTable]);
   if (plan.build.groupTable) await db.exec(`DROP TABLE IF EXISTS ${quoteIdent(plan.build.groupTable)}`);
 }
 

@@ -1,6 +1,7 @@
 import { type BuildPlan, planBuild } from '../../build/build-plan.js';
 import { abortBuild, finishBuild } from '../../build/finish-build.js';
 import { getSnapshot } from '../../build/snapshot-catalogue.js';
+import { dropOrphanStockoutStates } from '../../build/stockout-states.js';
 import { parseDay } from '../../core/days.js';
 import { LarderError } from '../../db/errors.js';
 import { recordSnapshotMark } from '../change-log.js';
@@ -72,6 +73,7 @@ export async function fullBuild(env: StepEnv, kit: WorkKit): Promise<StepResult>
       cutoff: parseDay(env.cutoff)!,
       priceBoundary: planned.priceBoundary,
     });
+    await dropOrphanStockoutStates(env.db);
     return {
       status: 'succeeded',
       rows: info.rowCount,
@@ -141,6 +143,7 @@ async function refresh(
     };
     const r = await finishRefresh(env.db, plan, { runId: env.run.runId, jobId: run.jobId, ...timings });
     await closeJob(env.db, run.jobId, 'done');
+    await dropOrphanStockoutStates(env.db);
     const finishMs = Math.round(performance.now() - tf);
     return {
       status: 'succeeded',
@@ -152,6 +155,8 @@ async function refresh(
         snapshotId: r.snapshotId,
         table: r.table,
         computedRows: r.computedRows,
+        stockout: plan.stockout ?? null,
+        salesFrom: plan.build.salesFrom,
         droppedRows: r.droppedRows,
         partitions: run.progress.total,
         timings: { ...timings, finishMs },

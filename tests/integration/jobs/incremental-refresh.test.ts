@@ -87,11 +87,13 @@ test('one more day of sales at a time, 5 days running: the refresh equals a full
     expect(r.output).toContain(`loading sales_${day}.csv`);
     expect(r.output).toContain(`refreshed from ${formatDay(parseDay(day)! - 1)}`);
     const step = (
-      await db.query<{ details: { mode: string; computedRows: number } }>(
+      await db.query<{ details: { mode: string; computedRows: number; stockout: string } }>(
         `SELECT details FROM run_steps WHERE name = 'build' ORDER BY step_id DESC LIMIT 1`,
       )
     ).rows[0]!.details;
     expect(step.mode).toBe('incremental');
+    // The stock-out rule resumed from the previous snapshot's states: only the newest days read.
+    expect(step.stockout).toBe('tail');
     // 18 series: one new training row and H = 7 prediction rows each.
     expect(step.computedRows).toBe(18 * 8);
 
