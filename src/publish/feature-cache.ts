@@ -1,4 +1,5 @@
 import { LarderError } from '../db/errors.js';
+import { unpackInto } from './layout.js';
 
 /**
  * The few cache operations publish and serve need. Two implementations with the same semantics:
@@ -17,6 +18,11 @@ export interface FeatureCache {
   /** Values in the order of `keys`, null where a key is absent. */
   getBuffers(keys: readonly string[]): Promise<(Buffer | null)[]>;
   getStrings(keys: readonly string[]): Promise<(string | null)[]>;
+  /**
+   * Values of `keys` that should each hold `floats` packed Float32 values (bulk reads), copied
+   * into one array; an absent key or a value of another size is counted in `missing`.
+   */
+  getPacked(keys: readonly string[], floats: number): Promise<PackedBatch>;
   /** Writes every entry (pipelined), each expiring after `ttlMs` when given. */
   setMany(entries: readonly CacheEntry[], ttlMs?: number): Promise<void>;
   /** How many of `keys` exist. */
@@ -31,6 +37,28 @@ export interface FeatureCache {
   /** Deletes keys (tests and cleanup). */
   deleteMany(keys: readonly string[]): Promise<void>;
   close(): Promise<void>;
+}
+
+/** Vectors read in bulk: value `i` at float offset `i * floats` of `values`. */
+export interface PackedBatch {
+  readonly values: Float32Array;
+  /** Per key: 1 when its value was there with the expected size, else 0 (its cells are NaN). */
+  readonly found: Uint8Array;
+  readonly missing: number;
+}
+
+/** Copies values into a PackedBatch, as `getPacked` answers. */
+export function packBatch(bufs: readonly (Uint8Array | null)[], floats: number): PackedBatch {
+  const values = new Float32Array(bufs.length * floats).fill(Number.NaN);
+  const found = new Uint8Array(bufs.length);
+  let missing = 0;
+  bufs.forEach((b, i) => {
+    if (b && b.byteLength === floats * 4) {
+      unpackInto(b, values, i * floats);
+      found[i] = 1;
+    } else missing++;
+  });
+  return { values, found, missing };
 }
 
 export type CacheEntry = readonly [key: string, value: Buffer | string];

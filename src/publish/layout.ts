@@ -84,7 +84,8 @@ export function hashTag(key: string): string {
   return key.slice(open + 1, close);
 }
 
-const LITTLE_ENDIAN_HOST = endianness() === 'LE';
+/** The packed format is little-endian: on such a host a vector's bytes are its Float32Array's. */
+export const LITTLE_ENDIAN_HOST = endianness() === 'LE';
 
 /**
  * Packs `rows x cols` values (row-major, day by feature) as little-endian Float32; NaN stays NaN

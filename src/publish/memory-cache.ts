@@ -1,4 +1,4 @@
-import type { CacheEntry, FeatureCache } from './feature-cache.js';
+import { type CacheEntry, type FeatureCache, packBatch } from './feature-cache.js';
 
 interface Slot {
   value: Buffer;
@@ -42,6 +42,12 @@ export function createMemoryCache(name = 'default'): FeatureCache {
     },
     async getBuffers(keys) {
       return keys.map((k) => live(k)?.value ?? null);
+    },
+    async getPacked(keys, floats) {
+      return packBatch(
+        keys.map((k) => live(k)?.value ?? null),
+        floats,
+      );
     },
     async getStrings(keys) {
       return keys.map((k) => live(k)?.value.toString() ?? null);

@@ -1,13 +1,15 @@
-import { Cluster, type ClusterNode, Redis } from 'ioredis';
+import { Cluster, Redis } from 'ioredis';
 import { ConfigError, LarderError } from '../db/errors.js';
+import { BulkConnection, type BulkTarget } from './bulk-connection.js';
 import {
   type CacheEntry,
   CacheUnavailableError,
   chunks,
   type FeatureCache,
+  packBatch,
   pushTo,
 } from './feature-cache.js';
-import { hashTag } from './layout.js';
+import { hashTag, LITTLE_ENDIAN_HOST } from './layout.js';
 
 export interface RedisCacheOptions {
   /**
@@ -33,11 +35,17 @@ const MULTI_KEY_CHUNK = 500;
 
 interface ParsedTarget {
   readonly cluster: boolean;
-  readonly nodes: ClusterNode[];
+  readonly nodes: { host: string; port: number }[];
   readonly url: string;
+  readonly tls: boolean;
+  /** The database number of a `redis://host:port/N` URL (0 when absent). */
+  readonly db: number;
   readonly username?: string;
   readonly password?: string;
 }
+
+/** A bulk read waits at least this long for its MGETs (they carry megabytes, not one vector). */
+const BULK_TIMEOUT_MS = 5000;
 
 /** Parses the URL forms `createRedisCache` accepts; a malformed one is a ConfigError naming it. */
 export function parseRedisTarget(url: string, forceCluster = false): ParsedTarget {
@@ -50,9 +58,12 @@ export function parseRedisTarget(url: string, forceCluster = false): ParsedTarge
     return { host: hm[1]!.replace(/^\[|\]$/g, ''), port: hm[2] ? Number(hm[2]) : 6379 };
   });
   const cluster = forceCluster || m[1] === 'redis-cluster' || nodes.length > 1;
+  const dbm = /^\/(\d+)/.exec(m[5]!);
   return {
     cluster,
     nodes,
+    tls: m[1] === 'rediss',
+    db: dbm ? Number(dbm[1]) : 0,
     url: m[1] === 'redis-cluster' ? `redis://${m[4]}${m[5]}` : url,
     ...(m[2] ? { username: decodeURIComponent(m[2]) } : {}),
     ...(m[3] ? { password: decodeURIComponent(m[3]) } : {}),
@@ -158,6 +169,51 @@ export function createRedisCache(opts: RedisCacheOptions): FeatureCache {
       );
       return out;
     });
+  // Bulk reads of packed vectors go over a connection of their own when it can be a plain one
+  // (one server, no TLS, a little-endian host), so that they neither queue in front of single
+  // reads nor pay the general client's per-value costs; a Cluster reads them through ioredis.
+  const bulkTarget: BulkTarget | null =
+    !target.cluster && !target.tls && LITTLE_ENDIAN_HOST
+      ? {
+          host: target.nodes[0]!.host,
+          port: target.nodes[0]!.port,
+          username: target.username,
+          password: target.password,
+          db: target.db,
+        }
+      : null;
+  let bulk: BulkConnection | null = null;
+  let opening: Promise<BulkConnection> | null = null;
+  let closing = false;
+  const bulkConnection = (): BulkConnection | Promise<BulkConnection> => {
+    if (bulk?.usable()) return bulk;
+    opening ??= BulkConnection.open(bulkTarget!, Math.max(commandTimeout, BULK_TIMEOUT_MS), connectTimeout)
+      .then((c) => {
+        if (closing) c.close();
+        bulk = c;
+        return c;
+      })
+      .finally(() => {
+        opening = null;
+      });
+    return opening;
+  };
+  const getPacked = async (keys: readonly string[], floats: number) => {
+    if (client.status !== 'ready') {
+      throw new CacheUnavailableError(`${what} is not connected (${client.status}) for MGET`, {
+        cause: lastError,
+      });
+    }
+    if (!bulkTarget) return packBatch(await getBuffers(keys), floats);
+    try {
+      return await (await bulkConnection()).mget(keys, floats);
+    } catch (err) {
+      if (err instanceof LarderError) throw err;
+      throw new CacheUnavailableError(`${what} did not answer MGET: ${(err as Error).message}`, {
+        cause: err,
+      });
+    }
+  };
   return {
     kind: target.cluster ? 'cluster' : 'redis',
     ready: () => client.status === 'ready',
@@ -177,6 +233,7 @@ export function createRedisCache(opts: RedisCacheOptions): FeatureCache {
     getString: (key) => guard('GET', () => client.get(key)),
     getBuffer: (key) => guard('GET', () => client.getBuffer(key)),
     getBuffers,
+    getPacked,
     async getStrings(keys) {
       return (await getBuffers(keys)).map((b) => b?.toString() ?? null);
     },
@@ -209,6 +266,9 @@ export function createRedisCache(opts: RedisCacheOptions): FeatureCache {
         await pipelined(keys, (p, k) => p.del(k));
       }),
     async close() {
+      closing = true;
+      await opening?.catch(() => null);
+      bulk?.close();
       if (client.status === 'ready') await client.quit().catch(() => client.disconnect());
       else client.disconnect();
     },
