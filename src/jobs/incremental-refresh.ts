@@ -24,6 +24,7 @@ import type { SeriesInput } from '../features/family.js';
 import { resolveFeatureSet } from '../features/feature-set.js';
 import { stockoutMask } from '../features/stockout-mask.js';
 import { resumeStockoutMask, type StockoutState, stockoutStateOf } from '../features/stockout-state.js';
+import { deleteRetiredRows, ensureRefreshIndexes } from './refresh-indexes.js';
 import {
   type ChangeMark,
   changeInside,
@@ -454,13 +455,8 @@ export async function finishRefresh(
     for (const r of old.rows)
       if (r.table_name !== plan.previousTable)
         await tx.exec(`DROP TABLE IF EXISTS ${quoteIdent(r.table_name)}`);
-    const dropped = (
-      await tx.query<{ train: number; predict: number }>(
-        `WITH d AS (DELETE FROM ${prevTable} WHERE is_predict OR day < $1::date RETURNING is_predict)
-         SELECT count(*) FILTER (WHERE NOT is_predict)::int8 AS train, count(*) FILTER (WHERE is_predict)::int8 AS predict FROM d`,
-        [plan.trainFrom],
-      )
-    ).rows[0]!;
+    await ensureRefreshIndexes(tx, plan.previousTable, plan.trainFrom);
+    const dropped = await deleteRetiredRows(tx, plan.previousTable, plan.trainFrom);
     const added = (
       await tx.query<{ train: number; predict: number }>(
         `WITH i AS (INSERT INTO ${prevTable} SELECT * FROM ${delta} ORDER BY series_id, day RETURNING is_predict)

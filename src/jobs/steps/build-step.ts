@@ -5,6 +5,7 @@ import { dropOrphanStockoutStates } from '../../build/stockout-states.js';
 import { parseDay } from '../../core/days.js';
 import { LarderError } from '../../db/errors.js';
 import { recordSnapshotMark } from '../change-log.js';
+import { prepareRefreshIndexes } from '../refresh-indexes.js';
 import type { PlanNotes } from '../pipeline-stages.js';
 import type { WorkKit } from '../partitioned-job.js';
 import { runPartitioned } from '../partitioned-job.js';
@@ -54,6 +55,9 @@ export async function fullBuild(env: StepEnv, kit: WorkKit): Promise<StepResult>
         await abortBuild(env.db, plan).catch(() => {});
         throw new LarderError('DATA_CHANGED', `the data of ${set} changed after the run started: run again`);
       }
+      // While the table is empty: the indexes a later refresh deletes by (refresh-indexes.ts).
+      if (plan.definition.mode === 'shift' && env.config.pipeline.incremental)
+        await prepareRefreshIndexes(env.db, plan.stagingTable, plan.from);
       return { payload: plan, partitions: plan.partitions };
     },
   });
