@@ -164,46 +164,68 @@ export async function readPartitionPrices(
   deptPrices: Map<string, Map<number, Map<number, number>>>;
 }> {
   // Per item of the store's series, a range scan of the prices key (item_id, store_id, week_start):
-  // the key does not lead with the store, so filtering on it alone would scan every price.
+  // the key does not lead with the store, so filtering on it alone would scan every price. Rows
+  // carry the series id rather than the item's text id (one item per series in a store), so
+  // the reader decodes no string per row.
   const st = quoteLiteral(store);
-  const sql = `COPY (SELECT x.item_id, x.week_start, x.price FROM (SELECT item_id FROM series WHERE store_id = ${st} ORDER BY item_id) r
-      CROSS JOIN LATERAL (SELECT p.item_id, p.week_start, p.price::float8 AS price FROM prices p
+  const itemOf = new Map(
+    (
+      await s.query<{ series_id: number; item_id: string }>(
+        'SELECT series_id, item_id FROM series WHERE store_id = $1',
+        [store],
+      )
+    ).rows.map((r) => [r.series_id, r.item_id]),
+  );
+  const sql = `COPY (SELECT x.series_id, x.week_start, x.price FROM (SELECT series_id, item_id FROM series WHERE store_id = ${st} ORDER BY item_id) r
+      CROSS JOIN LATERAL (SELECT r.series_id, p.week_start, p.price::float8 AS price FROM prices p
         WHERE p.item_id = r.item_id AND p.store_id = ${st} AND p.week_start <= ${dayLiteral(priceBoundary)}
         ORDER BY p.week_start OFFSET 0) x) TO STDOUT (FORMAT binary)`;
   const prices = new Map<string, ItemPrices>();
   const deptPrices = new Map<string, Map<number, Map<number, number>>>();
+  let curId = -1;
   let curItem: string | null = null;
-  let weeks: number[] = [];
-  let values: number[] = [];
+  let curDept: Map<number, Map<number, number>> | null = null;
+  let weeks = new Int32Array(64);
+  let values = new Float64Array(64);
+  let n = 0;
   const flush = () => {
-    if (curItem !== null)
-      prices.set(curItem, { weeks: Int32Array.from(weeks), prices: Float64Array.from(values) });
-    weeks = [];
-    values = [];
+    if (curItem !== null) prices.set(curItem, { weeks: weeks.slice(0, n), prices: values.slice(0, n) });
+    n = 0;
   };
-  for await (const b of readCopyBinary(s.copyTo(sql), ['text', 'date', 'float8'])) {
-    const items = b.columns[0] as string[];
+  for await (const b of readCopyBinary(s.copyTo(sql), ['int4', 'date', 'float8'])) {
+    const ids = b.columns[0] as Int32Array;
     const wk = b.columns[1] as Int32Array;
     const pr = b.columns[2] as Float64Array;
     for (let r = 0; r < b.length; r++) {
-      const item = items[r]!;
-      if (item !== curItem) {
+      if (ids[r] !== curId) {
         flush();
-        curItem = item;
+        curId = ids[r]!;
+        curItem = itemOf.get(curId)!;
+        const dept = departmentOf.get(curItem);
+        curDept = null;
+        if (dept !== undefined && dept !== null) {
+          curDept = deptPrices.get(dept) ?? null;
+          if (!curDept) {
+            curDept = new Map();
+            deptPrices.set(dept, curDept);
+          }
+        }
       }
-      weeks.push(wk[r]!);
-      values.push(pr[r]!);
-      const dept = departmentOf.get(item);
-      if (dept === undefined || dept === null) continue;
-      let byWeek = deptPrices.get(dept);
-      if (!byWeek) {
-        byWeek = new Map();
-        deptPrices.set(dept, byWeek);
+      if (n === weeks.length) {
+        const w2 = new Int32Array(2 * n);
+        w2.set(weeks);
+        weeks = w2;
+        const v2 = new Float64Array(2 * n);
+        v2.set(values);
+        values = v2;
       }
-      let counts = byWeek.get(wk[r]!);
+      weeks[n] = wk[r]!;
+      values[n++] = pr[r]!;
+      if (curDept === null) continue;
+      let counts = curDept.get(wk[r]!);
       if (!counts) {
         counts = new Map();
-        byWeek.set(wk[r]!, counts);
+        curDept.set(wk[r]!, counts);
       }
       const tick = priceTicks(pr[r]!);
       counts.set(tick, (counts.get(tick) ?? 0) + 1);

@@ -166,6 +166,16 @@ const WIDTH: Record<CopyType, number> = {
   bool: 1,
   text: 0,
 };
+const CODE: Record<CopyType, number> = {
+  int2: 0,
+  int4: 1,
+  date: 2,
+  int8: 3,
+  float4: 4,
+  float8: 5,
+  bool: 6,
+  text: 7,
+};
 
 /**
  * Decodes a binary COPY stream into columnar batches of up to `batchSize` rows. int2/int4/date
@@ -187,6 +197,8 @@ export async function* readCopyBinary(
   let cur = fresh();
   let n = 0;
   const fixedMax = types.every((t) => WIDTH[t] > 0) ? types.reduce((a, t) => a + 4 + WIDTH[t], 2) : -1;
+  const codes = Int8Array.from(types, (t) => CODE[t]);
+  const widths = Int32Array.from(types, (t) => WIDTH[t]);
 
   for await (const chunk of source) {
     pending = pending.length
@@ -242,32 +254,33 @@ export async function* readCopyBinary(
           if (col instanceof Float64Array) col[n] = Number.NaN;
           continue;
         }
-        const t = types[f]!;
-        if (l !== WIDTH[t] && WIDTH[t] > 0)
-          throw new Error(`binary COPY field ${f + 1} has ${l} bytes, a ${t} has ${WIDTH[t]}`);
-        switch (t) {
-          case 'int2':
+        const wd = widths[f]!;
+        if (l !== wd && wd > 0)
+          throw new Error(`binary COPY field ${f + 1} has ${l} bytes, a ${types[f]} has ${wd}`);
+        // Numeric type codes (see CODE): a switch on small integers, not on strings, per field.
+        switch (codes[f]) {
+          case 0:
             (col as Int32Array)[n] = dv.getInt16(q);
             break;
-          case 'int4':
+          case 1:
             (col as Int32Array)[n] = dv.getInt32(q);
             break;
-          case 'date':
+          case 2:
             (col as Int32Array)[n] = dv.getInt32(q) + PG_EPOCH_DAYS;
             break;
-          case 'int8':
+          case 3:
             (col as Float64Array)[n] = Number(dv.getBigInt64(q));
             break;
-          case 'float4':
+          case 4:
             (col as Float64Array)[n] = dv.getFloat32(q);
             break;
-          case 'float8':
+          case 5:
             (col as Float64Array)[n] = dv.getFloat64(q);
             break;
-          case 'bool':
+          case 6:
             (col as Uint8Array)[n] = buf[q]!;
             break;
-          case 'text':
+          default:
             (col as string[])[n] = decoder.decode(buf.subarray(q, q + l));
             break;
         }
