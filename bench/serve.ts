@@ -5,9 +5,12 @@
  * Needs DATABASE_URL and REDIS_URL (default redis://127.0.0.1:6379). Without --set it builds a
  * synthetic snapshot in its own schema (bench_serve), dropped afterwards. Measures, in one run:
  *   (a) client batched reads of 100 series (vectors/s) against `redis-benchmark -t get -P 16`
- *       with the same payload size (target >= 0.25x its ops/s); readAll series/s (>= 200k/s);
+ *       with the same payload size (target >= 0.25x its ops/s); readAll series/s, median of three
+ *       passes (>= 200k/s);
  *   (b) HTTP single-series reads (one day; and all H days) at a fixed rate with autocannon, in a
- *       process of its own: p50 / p99 (target p99 <= 2 ms), and the server's own histogram;
+ *       process of its own, the rate spread over each second (bench/serve-http-load.ts): p50 / p99
+ *       (target p99 <= 2 ms), and the server's own histogram; then one day again with
+ *       autocannon's own per-second bursts, for comparison;
  *   (c) Redis memory per series (MEMORY USAGE sampled, and the used_memory delta) against the
  *       packed payload (target <= 1.3x);
  *   (d) publish time for all series.
@@ -170,11 +173,22 @@ export async function main(argv: string[]): Promise<void> {
     db9.disconnect();
 
     const all: { item: string; store: string }[] = [];
-    const t1 = performance.now();
     for await (const b of reader.readAll({ set })) {
       for (let i = 0; i < b.items.length; i++) all.push({ item: b.items[i]!, store: b.stores[i]! });
     }
-    const readAllRate = all.length / ((performance.now() - t1) / 1000);
+    /** One full readAll pass: series/s, and the client's CPU per series (user + system). */
+    const readAllPass = async () => {
+      let n = 0;
+      const c0 = process.cpuUsage();
+      const t = performance.now();
+      for await (const b of reader.readAll({ set })) n += b.items.length;
+      const wall = (performance.now() - t) / 1000;
+      const c = process.cpuUsage(c0);
+      return { rate: n / wall, cpuUs: (c.user + c.system) / n };
+    };
+    // Three passes: on a shared machine one pass can land on a busy moment; the median is reported.
+    const passes = [await readAllPass(), await readAllPass(), await readAllPass()];
+    const readAllRate = [...passes.map((x) => x.rate)].sort((x, y) => x - y)[1]!;
     const seconds = Number(o['read-seconds']);
     const pick = () => {
       const s = all[Math.floor(Math.random() * all.length)]!;
@@ -205,7 +219,9 @@ export async function main(argv: string[]): Promise<void> {
     );
     out(`    getMany(100), named features per day: ${Math.round(named)} series/s (${ratio(named)})`);
     out(
-      `    readAll: ${Math.round(readAllRate)} series/s (${ratio(readAllRate)})  [target >= 200000 series/s]`,
+      `    readAll: ${Math.round(readAllRate)} series/s median of 3 passes (${ratio(readAllRate)}; passes ` +
+        `${passes.map((x) => `${Math.round(x.rate)}/s at ${x.cpuUs.toFixed(2)} us CPU a series`).join(', ')})  ` +
+        '[target >= 200000 series/s]',
     );
     await reader.close();
 
@@ -250,7 +266,7 @@ export async function main(argv: string[]): Promise<void> {
         .map((m) => [m[1] === '+Inf' ? Number.POSITIVE_INFINITY : Number(m[1]), Number(m[3])] as const);
     };
     const rate = Number(o.rate);
-    const httpRun = async (label: string, paths: string[]) => {
+    const httpRun = async (label: string, paths: string[], pacing: 'spread' | 'burst' = 'spread') => {
       const pathsFile = join(tmp, 'paths.txt');
       writeFileSync(pathsFile, paths.join('\n'));
       const before = await histogram();
@@ -270,6 +286,8 @@ export async function main(argv: string[]): Promise<void> {
         String(rate),
         '--duration',
         String(o.duration),
+        '--pacing',
+        pacing,
       ];
       const load = JSON.parse(execFileSync(process.execPath, args, { encoding: 'utf8' })) as Record<
         string,
@@ -296,15 +314,17 @@ export async function main(argv: string[]): Promise<void> {
       );
     };
     // A prediction request asks for one series on one day (40 features); a full-horizon read
-    // (all H days, 1,120 numbers of JSON) is measured beside it.
-    await httpRun(
-      'one series, one day',
-      all.map((s) => path(s, days[Math.floor(Math.random() * days.length)])),
-    );
+    // (all H days, 1,120 numbers of JSON) is measured beside it. The rate is spread over each
+    // second (serve-http-load: staggered clients); the same load as autocannon's own per-second
+    // quota on 20 connections, which releases a second's requests at once so that 20 wait
+    // together, is printed last for comparison.
+    const oneDay = all.map((s) => path(s, days[Math.floor(Math.random() * days.length)]));
+    await httpRun('one series, one day', oneDay);
     await httpRun(
       `one series, all ${info.horizon} days`,
       all.map((s) => path(s)),
     );
+    await httpRun('one series, one day, autocannon quota bursts', oneDay, 'burst');
   } finally {
     if (server && server.exitCode === null) {
       const exited = new Promise((r) => server!.once('exit', r));

@@ -98,9 +98,8 @@ export function buildServer(opts: ServerOptions): FastifyInstance {
   const limit = config.serve.batchLimit;
   const app = Fastify({
     logger: { level: opts.logLevel ?? 'warn' },
-    // Request lines are not logged (they would be `info`), so a request needs no child logger of
-    // its own: the server's logger serves every request, saving a pino child per request.
-    disableRequestLogging: true,
+    // The server's logger serves every request (no pino child with a request id per request:
+    // at the default level nothing per request is logged, and the child cost every request).
     childLoggerFactory: (logger) => logger,
     // Room for a full batch of long ids; anything bigger is refused by Fastify with 413.
     bodyLimit: Math.max(1 << 20, limit * 512),
