@@ -211,6 +211,9 @@ export async function runChecks(
     );
   }
   const waived = await applyWaivers(db, runId, formatDay(today));
+  // The run's findings are final now: read them back while the summary rows are written.
+  const findings = readFindings(db, runId);
+  findings.catch(() => {}); // awaited below; a failure before then must not go unhandled
   const counts = await db.query<{
     check: string;
     blocking: number;
@@ -293,6 +296,6 @@ export async function runChecks(
     infos: sum('infos'),
     waived: sum('waived'),
     checks,
-    findings: await readFindings(db, runId),
+    findings: await findings,
   };
 }
