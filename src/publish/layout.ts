@@ -115,18 +115,6 @@ export function unpackInto(packed: Uint8Array, target: Float32Array, at: number)
   for (let i = 0; i < packed.byteLength / 4; i++) target[at + i] = view.getFloat32(i * 4, true);
 }
 
-/**
- * `n` floats of a packed vector from float offset `at`: a view over the same bytes when they are
- * 4-byte aligned on a little-endian host (no copy), otherwise a copy.
- */
-export function floatsOf(packed: Uint8Array, at: number, n: number): Float32Array {
-  const byteOffset = packed.byteOffset + at * 4;
-  if (LITTLE_ENDIAN_HOST && byteOffset % 4 === 0) return new Float32Array(packed.buffer, byteOffset, n);
-  const out = new Float32Array(n);
-  unpackInto(packed.subarray(at * 4, (at + n) * 4), out, 0);
-  return out;
-}
-
 /** Unpacks one matrix into a fresh Float32Array. */
 export function unpackMatrix(packed: Uint8Array): Float32Array {
   const out = new Float32Array(packed.byteLength / 4);

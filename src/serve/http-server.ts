@@ -5,7 +5,7 @@ import { ConfigError, LarderError } from '../db/errors.js';
 import { packMatrix } from '../publish/layout.js';
 import { NotFoundError } from '../publish/snapshot-catalogue.js';
 import { createMetrics, type ServeMetrics } from './metrics.js';
-import { featureReadJson, packedReadJson } from './read-json.js';
+import { featureReadJson } from './read-json.js';
 import type { Reader } from './reader.js';
 import { createTokenCheck } from './token-check.js';
 
@@ -165,10 +165,8 @@ export function buildServer(opts: ServerOptions): FastifyInstance {
   app.get('/v1/sets/:set/features', async (req, reply) => {
     const { set } = setParamsSchema.parse(req.params);
     const q = featureQuerySchema.parse(req.query);
-    const one = await reader.readOne({ set, item: q.item, store: q.store, day: q.day });
-    const json =
-      one.source === 'cache' ? packedReadJson(one.head, one.packed, one.h) : featureReadJson(one.read);
-    return reply.type('application/json; charset=utf-8').send(json);
+    const read = await reader.get({ set, item: q.item, store: q.store, day: q.day });
+    return reply.type('application/json; charset=utf-8').send(featureReadJson(read));
   });
   // The whole H x F matrix as packed little-endian Float32 (the cache's own bytes): for clients
   // that want every day and can skip JSON. Columns and days come from GET /v1/sets/:set.

@@ -1,5 +1,4 @@
-import { floatsOf } from '../publish/layout.js';
-import type { FeatureRead, FeatureRow, PackedReadHead } from './read-types.js';
+import type { FeatureRead, FeatureRow } from './read-types.js';
 
 type RowWriter = (features: Record<string, number | null>) => string;
 
@@ -45,48 +44,5 @@ export function featureReadJson(r: FeatureRead): string {
     `{"set":${JSON.stringify(r.set)},"item":${JSON.stringify(r.item)},"store":${JSON.stringify(r.store)},` +
     `"cutoff":${JSON.stringify(r.cutoff)},"version":${num(r.version)},"source":${JSON.stringify(r.source)},` +
     `"rows":${rowsJson(r.rows)}}`
-  );
-}
-
-type MatrixRowWriter = (m: Float32Array, at: number) => string;
-const matrixWriters = new Map<string, MatrixRowWriter>();
-
-/** A compiled writer of one day's features straight from a matrix (no object in between). */
-function matrixWriterFor(names: readonly string[]): MatrixRowWriter {
-  const key = names.join(',');
-  let w = matrixWriters.get(key);
-  if (w) return w;
-  if (!names.every((n) => NAME_RE.test(n))) {
-    w = (m, at) => JSON.stringify(Object.fromEntries(names.map((n, f) => [n, m[at + f]])));
-  } else {
-    const body = names.map((n, f) => `'${f ? ',' : '{'}"${n}":' + num(m[at + ${f}])`).join(' + ');
-    w = new Function('num', `return function (m, at) { return ${body || "'{'"} + '}'; };`)(
-      num,
-    ) as MatrixRowWriter;
-  }
-  if (matrixWriters.size >= 64) matrixWriters.delete(matrixWriters.keys().next().value!);
-  matrixWriters.set(key, w);
-  return w;
-}
-
-/**
- * The JSON of a cache read written from the packed `H x F` matrix itself: the same text as
- * `featureReadJson` of the decoded read (NaN as null), without building a row object per day.
- * `h` is the one row asked for, or null for every day.
- */
-export function packedReadJson(head: PackedReadHead, packed: Uint8Array, h: number | null): string {
-  const F = head.names.length;
-  const h0 = h ?? 0;
-  const h1 = h === null ? head.days.length : h + 1;
-  const m = floatsOf(packed, h0 * F, (h1 - h0) * F);
-  const write = matrixWriterFor(head.names);
-  let rows = '[';
-  for (let r = h0; r < h1; r++) {
-    rows += `${r > h0 ? ',' : ''}{"day":${JSON.stringify(head.days[r])},"features":${write(m, (r - h0) * F)}}`;
-  }
-  return (
-    `{"set":${JSON.stringify(head.set)},"item":${JSON.stringify(head.item)},"store":${JSON.stringify(head.store)},` +
-    `"cutoff":${JSON.stringify(head.cutoff)},"version":${num(head.version)},"source":"cache",` +
-    `"rows":${rows}]}`
   );
 }

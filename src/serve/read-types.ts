@@ -69,33 +69,6 @@ export interface VectorBatch {
   readonly sources: readonly (ReadSource | null)[];
 }
 
-/** What a cached read's JSON needs besides the matrix. */
-export interface PackedReadHead {
-  readonly set: string;
-  readonly item: string;
-  readonly store: string;
-  readonly cutoff: string;
-  readonly version: number;
-  /** Feature names, in matrix column order. */
-  readonly names: readonly string[];
-  /** The day of each matrix row, `YYYY-MM-DD`. */
-  readonly days: readonly string[];
-}
-
-/**
- * One series read the way the HTTP service wants it: on a cache hit the packed matrix itself with
- * what its JSON needs (`h`: the one matrix row asked for, or null for all), so no row objects are
- * built; otherwise the read as `get` gives it (from PostgreSQL).
- */
-export type SingleRead =
-  | {
-      readonly source: 'cache';
-      readonly head: PackedReadHead;
-      readonly packed: Uint8Array;
-      readonly h: number | null;
-    }
-  | { readonly source: 'fallback'; readonly read: FeatureRead };
-
 /** What a set currently serves (HTTP `GET /v1/sets/:set`). */
 export interface SetInfo {
   readonly set: string;

@@ -19,7 +19,6 @@ import {
   type ReadSource,
   type SeriesBatch,
   type SetInfo,
-  type SingleRead,
   UnavailableError,
   type VectorBatch,
 } from './read-types.js';
@@ -57,11 +56,6 @@ export interface Reader {
   /** Several series, in request order; one MGET per store slot, one SQL query for any misses. */
   getMany(reqs: readonly ReadRequest[], opts?: { unknown?: 'error' }): Promise<FeatureRead[]>;
   getMany(reqs: readonly ReadRequest[], opts: GetManyOptions): Promise<(FeatureRead | null)[]>;
-  /**
-   * One series as the HTTP service reads it: the packed matrix on a cache hit (no row objects),
-   * otherwise `get`'s answer from PostgreSQL. Same validation, errors and events as `get`.
-   */
-  readOne(req: ReadRequest): Promise<SingleRead>;
   /** Several series of one set as matrices in one Float32Array (no per-feature objects). */
   getVectors(set: string, series: readonly { item: string; store: string }[]): Promise<VectorBatch>;
   /** What a set serves now: version, cutoff, columns. */
@@ -274,28 +268,6 @@ export async function createReader(opts: ReaderOptions = {}): Promise<Reader> {
     return out;
   }
 
-  async function readOne(req: ReadRequest): Promise<SingleRead> {
-    const parsed = [parseRequest(req, '')];
-    const p = parsed[0]!;
-    const found = await lookup(p.set, [0], parsed, () => '');
-    const v = found.view;
-    const packed = found.hits.get(0);
-    if (v && packed) {
-      const head = { ...key(p), cutoff: v.manifest.cutoff, version: v.version, names: v.names, days: v.days };
-      return { source: 'cache', head, packed, h: p.day === null ? null : p.day - v.firstDay };
-    }
-    const { target, rows } = await fromDatabase(p.set, found, parsed, () => '');
-    const r = rows[0];
-    if (!r) {
-      throw new NotFoundError(
-        'UNKNOWN_SERIES',
-        `set '${p.set}' has no series item '${p.item}' at store '${p.store}'`,
-      );
-    }
-    const read = { ...key(p), cutoff: target.entry.cutoff, version: target.version };
-    return { source: 'fallback', read: { ...read, source: 'fallback', rows: r } };
-  }
-
   async function getVectors(
     set: string,
     series: readonly { item: string; store: string }[],
@@ -375,7 +347,6 @@ export async function createReader(opts: ReaderOptions = {}): Promise<Reader> {
       return (await getMany([req]))[0]!;
     },
     getMany: getMany as Reader['getMany'],
-    readOne,
     getVectors,
     async describe(set) {
       parseRequest({ set, item: '-', store: '-' }, '');

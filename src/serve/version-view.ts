@@ -53,13 +53,14 @@ export function viewOf(manifest: Manifest): VersionView {
 /** Rows of one series from its packed matrix: every day, or just `day` (an epoch day in range). */
 export function decodeRows(view: VersionView, packed: Uint8Array, day: number | null): FeatureRow[] | null {
   if (packed.byteLength !== view.stride * 4) return null;
-  const m = new Float32Array(view.stride);
-  unpackInto(packed, m, 0);
   const F = view.names.length;
   const h0 = day === null ? 0 : day - view.firstDay;
   const h1 = day === null ? view.manifest.horizon : h0 + 1;
+  // Only the days asked for are decoded (one of 28 for a prediction request).
+  const m = new Float32Array((h1 - h0) * F);
+  unpackInto(packed.subarray(h0 * F * 4, h1 * F * 4), m, 0);
   const rows: FeatureRow[] = [];
-  for (let h = h0; h < h1; h++) rows.push({ day: view.days[h]!, features: view.row(m, h * F) });
+  for (let h = h0; h < h1; h++) rows.push({ day: view.days[h]!, features: view.row(m, (h - h0) * F) });
   return rows;
 }
 
