@@ -112,12 +112,26 @@ export const priceSpikes = defineCheck({
         if (w.length) sold.set(s.seriesId, w);
       },
     });
+    // Sliding minimum and maximum of the baseline's positive prices (monotonic queues of row
+    // indices), so the common week is judged by withinBaseline without walking its baseline.
+    let minQ = new Int32Array(64);
+    let maxQ = new Int32Array(64);
     const priced = await ctx.prices({
       prices(g) {
         const keys = { seriesId: g.seriesId, itemId: g.itemId, storeId: g.storeId };
         let misaligned = 0;
         let firstBad = -1;
         let lo = 0;
+        if (g.n > minQ.length) {
+          minQ = new Int32Array(g.n);
+          maxQ = new Int32Array(g.n);
+        }
+        let minHead = 0;
+        let minTail = 0;
+        let maxHead = 0;
+        let maxTail = 0;
+        let added = 0; // rows [0, added) have entered the queues
+        let positive = 0; // positive prices in [lo, added)
         for (let k = 0; k < g.n; k++) {
           const w = g.weeks[k]!;
           const price = g.prices[k]!;
@@ -140,18 +154,31 @@ export const priceSpikes = defineCheck({
             });
             continue;
           }
-          while (g.weeks[lo]! < w - span) lo++;
+          for (; added < k; added++) {
+            const v = g.prices[added]!;
+            if (!(v > 0)) continue;
+            positive++;
+            while (minTail > minHead && g.prices[minQ[minTail - 1]!]! >= v) minTail--;
+            minQ[minTail++] = added;
+            while (maxTail > maxHead && g.prices[maxQ[maxTail - 1]!]! <= v) maxTail--;
+            maxQ[maxTail++] = added;
+          }
+          while (g.weeks[lo]! < w - span) {
+            if (g.prices[lo]! > 0) positive--;
+            lo++;
+          }
+          while (minHead < minTail && minQ[minHead]! < lo) minHead++;
+          while (maxHead < maxTail && maxQ[maxHead]! < lo) maxHead++;
+          if (positive > 0) {
+            const bLo = g.prices[minQ[minHead]!]!;
+            const bHi = g.prices[maxQ[maxHead]!]!;
+            if (withinBaseline(price, bLo, bHi, p)) continue;
+          }
           let n = 0;
-          let bLo = Number.POSITIVE_INFINITY;
-          let bHi = 0;
           for (let j = lo; j < k; j++) {
             const v = g.prices[j]!;
-            if (!(v > 0)) continue;
-            base[n++] = v;
-            if (v < bLo) bLo = v;
-            if (v > bHi) bHi = v;
+            if (v > 0) base[n++] = v;
           }
-          if (n > 0 && withinBaseline(price, bLo, bHi, p)) continue;
           const spike = judgePrice(price, base, n, p, scratch);
           if (!spike) continue;
           const ratio = price / spike.median;
