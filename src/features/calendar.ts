@@ -223,9 +223,12 @@ export const calendar = defineFamily<CalendarParams>({
       }
       const src = table.columns.get(name);
       if (!src) throw new Error(`calendar column ${name} not prepared`);
+      const day = rows.day;
+      const base = table.base;
+      const len = src.length;
       for (let r = 0; r < rows.n; r++) {
-        const i = rows.day[r]! - table.base;
-        col[r] = i >= 0 && i < src.length ? src[i]! : Number.NaN;
+        const i = day[r]! - base;
+        col[r] = i >= 0 && i < len ? src[i]! : Number.NaN;
       }
     }
   },

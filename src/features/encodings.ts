@@ -76,19 +76,31 @@ interface Prefix {
 // Levels with one member series per store are not worth caching across a store's series.
 const UNSHARED: ReadonlySet<GroupLevel> = new Set(['item', 'item_region']);
 
-function prefixOf(env: PartitionEnv, level: GroupLevel, key: string, g: GroupSeries): Prefix {
+// Prefix buffers of the uncached levels, one pair per role (0 the group, 1 its parent): both
+// may be uncached at once (item_region and its parent item), and each is used by one series.
+const prefixBufs: Float64Array[] = [];
+function prefixBuf(k: number, n: number): Float64Array {
+  let b = prefixBufs[k];
+  if (!b || b.length < n) prefixBufs[k] = b = new Float64Array(Math.max(n, 2 * (b?.length ?? 0)));
+  return b.subarray(0, n);
+}
+
+function prefixOf(env: PartitionEnv, level: GroupLevel, key: string, g: GroupSeries, role: 0 | 1): Prefix {
   const ck = `enc-prefix\u001f${level}\u001f${key}`;
   const hit = env.cache.get(ck) as Prefix | undefined;
   if (hit) return hit;
   const len = g.total.length;
-  const sums = new Float64Array(len + 1);
-  const counts = new Float64Array(len + 1);
+  const cached = !UNSHARED.has(level);
+  const sums = cached ? new Float64Array(len + 1) : prefixBuf(2 * role, len + 1);
+  const counts = cached ? new Float64Array(len + 1) : prefixBuf(2 * role + 1, len + 1);
+  sums[0] = 0;
+  counts[0] = 0;
   for (let i = 0; i < len; i++) {
     sums[i + 1] = sums[i]! + g.total[i]!;
     counts[i + 1] = counts[i]! + g.n[i]!;
   }
   const p = { base: g.base, sums, counts };
-  if (!UNSHARED.has(level)) env.cache.set(ck, p);
+  if (cached) env.cache.set(ck, p);
   return p;
 }
 
@@ -146,8 +158,8 @@ export const encodings = defineFamily<EncodingsParams>({
           col.fill(Number.NaN, 0, rows.n);
           continue;
         }
-        const pp = prefixOf(env, parent, pk, P);
-        const gp = G ? prefixOf(env, grp, gk, G) : null;
+        const pp = prefixOf(env, parent, pk, P, 1);
+        const gp = G ? prefixOf(env, grp, gk, G, 0) : null;
         for (let r = 0; r < rows.n; r++) {
           const b = e.wholeHistory ? s.cutoff : cellBoundary(rows, r, gap);
           const lo = e.wholeHistory ? -2147483648 : b - e.window + 1;

@@ -242,6 +242,20 @@ class WindowState {
   }
 }
 
+const NO_POWERS = new Float64Array(0);
+const powerTables = new Map<string, Float64Array>();
+/** lambda^k for k = 0..w, computed once per (lambda, w): a build asks for the same few per series. */
+function powers(lambda: number, w: number): Float64Array {
+  const key = `${lambda}:${w}`;
+  let pw = powerTables.get(key);
+  if (!pw) {
+    pw = new Float64Array(w + 1);
+    for (let k = 0; k <= w; k++) pw[k] = lambda ** k;
+    if (powerTables.size < 256) powerTables.set(key, pw);
+  }
+  return pw;
+}
+
 /**
  * Statistics of the windows [e - size + 1, e] for every end e in [eLo, eHi]; `out[k][e - eLo]`
  * is `spec.stats[k]` (NaN when fewer than `minDays` valid days, std also when fewer than 2).
@@ -267,12 +281,11 @@ export function windowStats(
     if (mf) mf[j] = maskFrom![j + origin - base]!;
   }
   const lambda = 1 - spec.alpha;
-  const pw = new Float64Array(w + 1);
-  for (let k = 0; k <= w; k++) pw[k] = lambda ** k;
   const idx = (s: WindowStat) => spec.stats.indexOf(s);
   const [kMean, kStd, kMin, kMax, kZero, kEwm] = (
     ['mean', 'std', 'min', 'max', 'zero_share', 'ewm'] as const
   ).map(idx) as [number, number, number, number, number, number];
+  const pw = kEwm >= 0 ? powers(lambda, w) : NO_POWERS;
   const st = new WindowState(x, w, lambda, pw, kMin >= 0, kMax >= 0, kEwm >= 0);
   const minDays = Math.max(1, spec.minDays);
   let ev = 0;
