@@ -194,13 +194,22 @@ export async function main(argv: string[]): Promise<void> {
     const incr = await larder(['run', '--cutoff', 'latest', '--concurrency', '1'], childEnv).done;
     if (incr.code !== 0) throw new Error(`incremental run failed:\n${incr.output}`);
     const steps = await stepTimes(db);
-    const mode = (
-      await db.query<{ mode: string }>(
-        `SELECT details->>'mode' AS mode FROM run_steps WHERE name = 'build' ORDER BY step_id DESC LIMIT 1`,
+    const details = (
+      await db.query<{ d: Record<string, unknown> }>(
+        `SELECT details AS d FROM run_steps WHERE name = 'build' ORDER BY step_id DESC LIMIT 1`,
       )
-    ).rows[0]?.mode;
-    figures.incremental = { seconds: incr.seconds, steps, mode, loadSeconds };
+    ).rows[0]?.d;
+    const mode = details?.mode as string | undefined;
+    const refresh = {
+      fingerprint: details?.fingerprint,
+      stockout: details?.stockout,
+      salesFrom: details?.salesFrom,
+      computedRows: details?.computedRows,
+      timings: details?.timings,
+    };
+    figures.incremental = { seconds: incr.seconds, steps, mode, loadSeconds, refresh };
     log(`incr    (${mode})  ${incr.seconds.toFixed(2)} s  ${JSON.stringify(steps)}`);
+    log(`        refresh ${JSON.stringify(refresh)}`);
     const f1 = figures.full1 as { seconds: number; steps: Record<string, number> };
     const runRatio = incr.seconds / f1.seconds;
     const buildRatio = (steps.build ?? Number.NaN) / (f1.steps.build ?? Number.NaN);
