@@ -204,7 +204,8 @@ export function createRedisCache(opts: RedisCacheOptions): FeatureCache {
         cause: lastError,
       });
     }
-    if (!bulkTarget) return packBatch(await getBuffers(keys), floats);
+    // MGET needs a key; an empty read answers as the in-process cache does.
+    if (!bulkTarget || keys.length === 0) return packBatch(await getBuffers(keys), floats);
     try {
       return await (await bulkConnection()).mget(keys, floats);
     } catch (err) {

@@ -104,6 +104,9 @@ describe('getPacked', () => {
       expect(await redis.waitReady(5000)).toBe(true);
       same(await memory.getPacked(ks, FLOATS), expected(bufs));
       same(await redis.getPacked(ks, FLOATS), expected(bufs));
+      const none = { values: new Float32Array(0), found: new Uint8Array(0), missing: 0 };
+      expect(await redis.getPacked([], FLOATS)).toEqual(none);
+      expect(await memory.getPacked([], FLOATS)).toEqual(none);
     } finally {
       await redis.close();
       await memory.deleteMany(ks);
