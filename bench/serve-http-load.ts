@@ -4,7 +4,7 @@
  * --paths FILE [--rate 2000] [--duration 20] [--connections 20] [--pacing spread|burst]`. Sends
  * GETs of random paths from FILE (one a line) at a fixed overall rate with autocannon and prints
  * one JSON line with the latency percentiles of the 200 answers (from every response's own time,
- * not the ms-rounded histogram).
+ * not the ms-rounded histogram) and this process's CPU per request.
  *
  * autocannon limits a rate by a quota per connection per second: a connection sends its quota
  * back to back when its second starts, then waits for the next one. With every connection's
@@ -60,6 +60,7 @@ export async function main(argv: string[]): Promise<void> {
     });
     return instance;
   };
+  const cpu0 = process.cpuUsage();
   const runs: PromiseLike<{ requests: { total: number }; non2xx: number; errors: number }>[] = [];
   if (o.pacing === 'burst') {
     runs.push(run(connections, rate));
@@ -72,6 +73,7 @@ export async function main(argv: string[]): Promise<void> {
     }
   }
   const results = await Promise.all(runs);
+  const cpu = process.cpuUsage(cpu0);
   const sorted = Float64Array.from(latencies).sort();
   const sum = (f: (r: (typeof results)[number]) => number) => results.reduce((a, r) => a + f(r), 0);
   process.stdout.write(
@@ -84,6 +86,13 @@ export async function main(argv: string[]): Promise<void> {
       p99: percentile(sorted, 99),
       p999: percentile(sorted, 99.9),
       max: sorted.at(-1) ?? Number.NaN,
+      // This process's own CPU a request: whether the load generator could be the bottleneck.
+      cpuUsPerRequest:
+        (cpu.user + cpu.system) /
+        Math.max(
+          1,
+          sum((r) => r.requests.total),
+        ),
     })}\n`,
   );
 }

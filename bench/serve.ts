@@ -310,7 +310,8 @@ export async function main(argv: string[]): Promise<void> {
       out(
         `    server-side: p50 <= ${upTo(0.5)} ms, p99 <= ${upTo(0.99)} ms; ${within(0.001).toFixed(1)}% within 1 ms, ` +
           `${within(0.002).toFixed(1)}% within 2 ms; server CPU ${(cpuPerRequest * 1e6).toFixed(0)} us a request ` +
-          `(${(cpuPerRequest * rate * 100).toFixed(0)}% of a core at ${rate} req/s)`,
+          `(${(cpuPerRequest * rate * 100).toFixed(0)}% of a core at ${rate} req/s); load generator CPU ` +
+          `${f(load.cpuUsPerRequest)} us a request`,
       );
     };
     // A prediction request asks for one series on one day (40 features); a full-horizon read
