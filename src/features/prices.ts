@@ -237,8 +237,24 @@ export const prices = defineFamily<PricesParams>({
     fillPriceRows(item, dept, (wk) => means?.get(wk) ?? Number.NaN, p.features, bufs);
     if (idxBuf.length < rows.n) idxBuf = new Int32Array(Math.max(rows.n, 2 * idxBuf.length));
     const idx = idxBuf;
-    for (let r = 0; r < rows.n; r++)
-      idx[r] = priceRowFor(item.weeks, rows.day[r]!, env.weekStart, env.priceBoundary);
+    // Rows come in day order (per origin in origin mode): walk the weeks alongside, as
+    // `priceRowFor` would find them, and start over where the days go back.
+    const weeks = item.weeks;
+    const last = weeks.length - 1;
+    const day = rows.day;
+    let j = 0;
+    let prev = -2147483648;
+    for (let r = 0; r < rows.n; r++) {
+      const ws = weekStartOf(day[r]!, env.weekStart);
+      if (ws > env.priceBoundary) {
+        idx[r] = last;
+        continue;
+      }
+      if (ws < prev) j = 0;
+      prev = ws;
+      while (j <= last && weeks[j]! < ws) j++;
+      idx[r] = j <= last && weeks[j] === ws ? j : -1;
+    }
     for (let c = 0; c < p.features.length; c++) {
       const src = bufs[c]!;
       const col = out[c]!;
