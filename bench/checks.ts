@@ -137,7 +137,9 @@ async function readFloor(db: Db): Promise<{ seconds: number; rows: number }> {
 
 async function timing(url: string, scale: number, reuse: boolean) {
   const items = Math.max(4, Math.round(3000 * scale));
-  const schema = 'bench_checks_timing';
+  // One schema per scale, so a small run never drops a full-scale chain loaded for --reuse.
+  const schema =
+    scale === 1 ? 'bench_checks_timing' : `bench_checks_timing_${String(scale).replace('.', '_')}`;
   let db: Db;
   let config: Config;
   const cfg = parseConfig({ database: { url, schema, poolSize: 4 } }, 'bench');

@@ -132,7 +132,10 @@ export async function runSalesPass(
     for (const v of visitors) v.call((x) => x.series(s));
   };
 
-  for await (const batch of readCopyBinary(db.copyTo(salesCopySql(cutoff)), ['int4', 'date', 'int4'])) {
+  // Small batches keep each synchronous stretch of visitor work short, so the server goes on
+  // filling the socket's buffers while Node works instead of waiting for Node to read.
+  const batches = readCopyBinary(db.copyTo(salesCopySql(cutoff)), ['int4', 'date', 'int4'], 8192);
+  for await (const batch of batches) {
     const sid = batch.columns[0] as Int32Array;
     const day = batch.columns[1] as Int32Array;
     const u = batch.columns[2] as Int32Array;
