@@ -412,6 +412,9 @@ export async function finishRefresh(
   const prevTable = quoteIdent(plan.previousTable);
   const delta = quoteIdent(b.stagingTable);
   const result = await db.transaction(async (tx) => {
+    // Every statement here touches a few rows through an index; on an unanalysed table the
+    // planner's estimates would have it compile each with JIT, which costs more than the work.
+    await tx.exec('SET LOCAL jit = off');
     await tx.query('SELECT pg_advisory_xact_lock(hashtext($1))', [`larder.build.${plan.set}.${plan.cutoff}`]);
     await tx.query('SELECT pg_advisory_xact_lock(hashtext($1))', [
       `larder.build.${plan.set}.${plan.previousCutoff}`,
