@@ -197,52 +197,26 @@ const FINDING_COPY_SQL = `COPY findings (run_id, "check", code, severity, series
 const SEVERITIES: ReadonlySet<string> = new Set(['block', 'warn', 'info']);
 
 /**
- * Every finding a run's checks write, as rows of one binary COPY into `findings`. Rows are
- * encoded as checks hand them over; with `streaming` the COPY starts at once on its own
- * connection, so the server stores findings while the sales pass is still running, otherwise
- * (one connection, or the embedded database) it runs at `close`. Rows become visible when
- * `close` resolves. Item, store and region are filled from the series and the store's region
- * as `writeFindings` does, from `keys` loaded once instead of a join per batch.
+ * Every finding a run's checks write, as rows of one binary COPY into `findings` at `close`
+ * (instead of an INSERT with joins per check and batch). Rows are encoded as checks hand them
+ * over; item, store and region are filled from the series and the store's region as
+ * `writeFindings` does, from `keys` loaded once. The COPY runs when the checks are done rather
+ * than streaming beside them, so it never holds one of the pool's connections while the passes
+ * and the set-based checks need them (checks hand over most findings at the end anyway).
  */
 export class FindingSink {
   private readonly writer = new CopyBinaryWriter();
-  private readonly queue: Uint8Array[] = [];
-  private wake: (() => void) | undefined;
+  private readonly chunks: Uint8Array[] = [];
   private closed = false;
-  private copy: Promise<number> | undefined;
   private written = 0;
 
   constructor(
     private readonly db: DbSession,
     private readonly runId: number,
-    private readonly keys: FindingKeys,
-    streaming: boolean,
+    private readonly keys: Promise<FindingKeys>,
   ) {
-    if (streaming) this.start();
-  }
-
-  private start(): void {
-    const copy = this.db.copyFrom(FINDING_COPY_SQL, this.chunks());
-    // Seen by `close`; until then a failure must not surface as an unhandled rejection.
-    copy.catch(() => {});
-    this.copy = copy;
-  }
-
-  private async *chunks(): AsyncGenerator<Uint8Array> {
-    for (;;) {
-      while (this.queue.length) yield this.queue.shift()!;
-      if (this.closed) return;
-      await new Promise<void>((res) => {
-        this.wake = res;
-      });
-      this.wake = undefined;
-    }
-  }
-
-  private push(chunks: Uint8Array[]): void {
-    if (chunks.length === 0) return;
-    this.queue.push(...chunks);
-    this.wake?.();
+    // Awaited by `add`; a failure before the first write must not go unhandled.
+    keys.catch(() => {});
   }
 
   /**
@@ -250,7 +224,12 @@ export class FindingSink {
    * together in its own order). A draft that cannot be stored throws before any row of the
    * batch is encoded, so the check fails instead of the whole COPY.
    */
-  add(check: string, severityOf: (code: FindingCode) => Severity, drafts: Iterable<FindingDraft>): number {
+  async add(
+    check: string,
+    severityOf: (code: FindingCode) => Severity,
+    drafts: Iterable<FindingDraft>,
+  ): Promise<number> {
+    const keys = await this.keys;
     if (this.closed) throw new Error('findings written after the run closed its findings');
     const list = Array.isArray(drafts) ? (drafts as FindingDraft[]) : [...drafts];
     const severities = list.map((f) => {
@@ -268,9 +247,9 @@ export class FindingSink {
     for (let i = 0; i < list.length; i++) {
       const f = list[i]!;
       const series =
-        f.seriesId === null || f.seriesId === undefined ? undefined : this.keys.series.get(f.seriesId);
+        f.seriesId === null || f.seriesId === undefined ? undefined : keys.series.get(f.seriesId);
       const storeId = f.storeId ?? series?.storeId ?? null;
-      const regionId = f.regionId ?? (storeId === null ? null : (this.keys.regionOf.get(storeId) ?? null));
+      const regionId = f.regionId ?? (storeId === null ? null : (keys.regionOf.get(storeId) ?? null));
       w.row(17);
       w.int8(this.runId);
       w.text(check);
@@ -293,20 +272,17 @@ export class FindingSink {
       // Binary jsonb is a version byte (1) followed by the JSON text.
       text(details === undefined ? null : `\u0001${details}`);
     }
-    this.push(w.take());
+    this.chunks.push(...w.take());
     this.written += list.length;
     return list.length;
   }
 
-  /** Ends the COPY (starting it first when not streaming); resolves with the rows stored. */
+  /** Stores every finding added (one COPY); resolves with how many rows were stored. */
   async close(): Promise<number> {
-    if (!this.closed) {
-      this.closed = true;
-      this.push(this.writer.end());
-      if (!this.copy) this.start();
-      this.wake?.();
-    }
-    await this.copy;
-    return this.written;
+    if (this.closed) throw new Error('the run closed its findings twice');
+    this.closed = true;
+    if (this.written === 0) return 0;
+    this.chunks.push(...this.writer.end());
+    return this.db.copyFrom(FINDING_COPY_SQL, this.chunks);
   }
 }

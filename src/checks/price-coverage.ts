@@ -20,13 +20,9 @@ export const priceCoverage = defineCheck({
   reads: ['prices', 'sales'],
   async run(db, ctx) {
     const limit = ctx.params.maxUnpricedShare;
-    const storeOf = new Map<number, string>();
-    const res = await db.query<{ series_id: number; store_id: string }>(
-      'SELECT series_id, store_id FROM series',
-    );
-    for (const r of res.rows) storeOf.set(r.series_id, r.store_id);
+    // Joined first: the shared passes start once every reader has, so no query may delay them.
     const soldBy = new Map<number, Int32Array>();
-    const [priced] = await Promise.all([
+    const passes = Promise.all([
       ctx.prices(),
       ctx.sales({
         series(s) {
@@ -34,6 +30,13 @@ export const priceCoverage = defineCheck({
         },
       }),
     ]);
+    passes.catch(() => {}); // awaited below, after the store query
+    const storeOf = new Map<number, string>();
+    const res = await db.query<{ series_id: number; store_id: string }>(
+      'SELECT series_id, store_id FROM series',
+    );
+    for (const r of res.rows) storeOf.set(r.series_id, r.store_id);
+    const [priced] = await passes;
     const byStore = new Map<string, { sold: number; unpriced: number }>();
     let sold = 0;
     let unpriced = 0;

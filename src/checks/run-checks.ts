@@ -112,14 +112,8 @@ export async function runChecks(
     [cutoff === null ? null : formatDay(cutoff), opts.only ? [...opts.only] : null, scheduled],
   );
   const runId = run.rows[0]!.run_id;
-  // One binary COPY carries every finding the checks write; on a server with connections to
-  // spare it streams while the passes run, so storing findings overlaps reading sales.
-  const sink = new FindingSink(
-    db,
-    runId,
-    await loadFindingKeys(db),
-    db.kind === 'server' && db.parallelism >= 4,
-  );
+  // One binary COPY stores every finding the checks write, once they are done.
+  const sink = new FindingSink(db, runId, loadFindingKeys(db));
   const timings: Record<string, number> = {};
   const timed = async <T>(name: string, fn: () => Promise<T>) => {
     const t0 = performance.now();
@@ -171,7 +165,7 @@ export async function runChecks(
           join('sales');
           return salesPass.subscribe(visitor);
         },
-        write: async (drafts) => sink.add(c.name, severity, drafts),
+        write: (drafts) => sink.add(c.name, severity, drafts),
         insertFrom: (code, columns, select, sqlParams) =>
           insertFindingsFrom(db, runId, c.name, code, severity(code), columns, select, sqlParams),
       };
