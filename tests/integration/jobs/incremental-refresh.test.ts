@@ -23,6 +23,21 @@ const SET = {
       { size: 28, shift: 7, stats: ['mean', 'std', 'min', 'max', 'zero_share', 'ewm'] },
     ],
     lags: { days: [7, 14, 63] },
+    // Expanding price statistics read every earlier week: the refreshed rows must see them all.
+    prices: {
+      features: [
+        'price',
+        'price_rel_max',
+        'price_mean',
+        'price_std',
+        'price_distinct',
+        'price_momentum_1w',
+        'price_momentum_4w',
+        'dept_same_price',
+        'price_rel_dept',
+      ],
+    },
+    encodings: [{ groups: ['item', 'store_department', 'item_region'], window: 28, shift: 7, m: 20 }],
   },
 };
 let env: ChildEnv;
