@@ -84,7 +84,7 @@ test("the runner's backends terminated mid-build: the run is recorded as failed 
   const [run] = await q<{ run_id: number; status: string; error_code: string; error: string }>(
     'SELECT run_id, status, error_code, error FROM runs ORDER BY run_id DESC LIMIT 1',
   );
-  expect(run!.status).toBe('failed');
+  expect(run!.status, end.output).toBe('failed');
   expect(['RUN_LOCK_LOST', '57P01', 'PARTITION_FAILED']).toContain(run!.error_code);
   expect(run!.error.length).toBeGreaterThan(0);
 
