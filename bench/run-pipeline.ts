@@ -61,7 +61,7 @@ async function generate(db: Db, s: Shape): Promise<void> {
       SELECT r.series_id, ${start} + d,
         CASE WHEN abs(hashint8extended(r.series_id::int8 * 10000 + d, 1)) % 100 < 20 + r.series_id % 60 THEN 0
              ELSE 1 + (abs(hashint8extended(r.series_id::int8 * 10000 + d, 2)) % (1 + r.series_id % 9))::int4 END
-      FROM series r, generate_series(0, ${s.days - 1}) d;
+      FROM series r, generate_series(0, ${s.days - 1}) d ORDER BY r.series_id, d;
     INSERT INTO prices (item_id, store_id, week_start, price)
       SELECT r.item_id, r.store_id, ${start} + 7 * w,
         round((1 + (r.series_id % 40) * 0.25) * (1 + (w / 52) * 0.03), 2)
