@@ -154,6 +154,10 @@ export async function materializeIn(
               (SELECT sum(dollars) FROM ev_dollars) AS dollars`,
     )
   ).rows[0]!;
+  // Statistics for the rows just written: without them the planner guesses a few dozen rows per
+  // cutoff and joins scales to weights in a nested loop, which took 30 s at 42k series here, for
+  // this query and for every later score.
+  await tx.exec('ANALYZE eval_scales; ANALYZE eval_weights');
   const perLevel = await tx.query<{
     level: number;
     series: number;

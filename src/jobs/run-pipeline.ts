@@ -454,16 +454,17 @@ async function recordLoad(db: Db, run: RunRecord, load: NonNullable<Locked['load
 }
 
 /**
- * Writes a record, retrying a few times: after the server dropped our connections (a restart,
- * pg_terminate_backend) the pool's next connection usually works, and the failure must be kept.
+ * Writes a record, retrying: after the server dropped our connections (a restart,
+ * pg_terminate_backend) every pooled connection may be dead and each attempt discards one, so
+ * it tries past a whole pool's worth (about 5 s in all); the failure must be kept.
  */
 async function record(fn: () => Promise<void>): Promise<void> {
   for (let attempt = 1; ; attempt++) {
     try {
       return await fn();
     } catch (err) {
-      if (attempt >= 4) throw err;
-      await new Promise((r) => setTimeout(r, 250 * attempt));
+      if (attempt >= 8) throw err;
+      await new Promise((r) => setTimeout(r, Math.min(1000, 250 * attempt)));
     }
   }
 }
