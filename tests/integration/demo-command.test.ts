@@ -5,6 +5,7 @@ import { tmpdir } from 'node:os';
 import { join, resolve } from 'node:path';
 import { afterAll, beforeAll, describe, expect, test } from 'vitest';
 import { schemaFor, useTestDb } from '../helpers/db.js';
+import { Redis } from 'ioredis';
 import { databaseUrl } from '../helpers/servers.js';
 
 // `larder demo` on the real server (in this process) and, as a user runs it, in its own process
@@ -27,6 +28,7 @@ function larderProcess(args: string[], env: Record<string, string>, cwd: string)
   return new Promise<{ code: number | null; out: string; err: string }>((done) => {
     const base = { ...process.env };
     delete base.DATABASE_URL;
+    delete base.REDIS_URL;
     delete base.LARDER_SCHEMA;
     delete base.LARDER_CONFIG;
     const child = spawn(process.execPath, [BIN, ...args], { cwd, env: { ...base, ...env } });
@@ -48,7 +50,21 @@ beforeAll(async () => {
   root = mkdtempSync(join(tmpdir(), 'larder-demo-cmd-'));
   data = join(root, 'chain');
 });
+/** The cache keys the server demo published under its schema's prefix (none without REDIS_URL). */
+async function demoKeys(del = false): Promise<number> {
+  if (!process.env.REDIS_URL) return 0;
+  const redis = new Redis(process.env.REDIS_URL);
+  try {
+    const keys = await redis.keys(`${demoSchema}:*`);
+    if (del && keys.length) await redis.del(...keys);
+    return keys.length;
+  } finally {
+    redis.disconnect();
+  }
+}
+
 afterAll(async () => {
+  await demoKeys(true);
   for (const s of [demoSchema, foreignSchema]) await t().db.exec(`DROP SCHEMA IF EXISTS "${s}" CASCADE`);
   rmSync(root, { recursive: true, force: true });
 });
@@ -85,6 +101,8 @@ describe('larder demo', () => {
         /== time per step ==\n {2}generate .*\n {2}reset schema .*\n {2}load .*\n {2}summary/,
       );
     }
+    // With a Redis, the demo publishes under its schema's prefix (cleaned up after the file).
+    if (process.env.REDIS_URL) expect(await demoKeys()).toBeGreaterThan(0);
   });
 
   test('refuses to drop a schema it did not make, and leaves it alone', async () => {

@@ -56,7 +56,10 @@ export function register(program: Command, ctx: CliContext): void {
     .option('--layout <layout>', 'sales file layout: long or wide', DEMO_DEFAULTS.layout)
     .option('--data <dir>', 'folder of the demo chain the demo loads', 'demo-data')
     .option('--out <dir>', 'folder for the demo outputs (reports, exports)', 'demo-output')
-    .option('--schema <name>', "schema the demo drops and rebuilds (default: the demo config's, larder_demo)")
+    .option(
+      '--schema <name>',
+      "schema the demo drops and rebuilds, also its cache key prefix (default: the demo config's, larder_demo)",
+    )
     .action(async (flags: DemoFlags, cmd: Command) => {
       if (flags.layout !== 'long' && flags.layout !== 'wide') {
         throw new UsageError(`--layout: expected long or wide, got '${flags.layout}'`);
@@ -111,8 +114,16 @@ export function register(program: Command, ctx: CliContext): void {
         throw new UsageError(`demo config not found: ${DEMO_CONFIG}`);
       const loaded = await loadConfig({ path: explicit ?? DEMO_CONFIG });
       const schema = flags.schema ?? loaded.database.schema;
+      // A demo in a schema of its own also publishes under a cache prefix of its own, so two
+      // demos (or a demo and a project) sharing one Redis never read each other's keys.
       const config =
-        schema === loaded.database.schema ? loaded : { ...loaded, database: { ...loaded.database, schema } };
+        schema === loaded.database.schema
+          ? loaded
+          : {
+              ...loaded,
+              database: { ...loaded.database, schema },
+              redis: { ...loaded.redis, prefix: schema.slice(0, 32) },
+            };
       const db = await openDatabase(config, { schema, migrate: false });
       ctx.onClose(() => db.close());
       ctx.out(
