@@ -8,7 +8,7 @@ import { FindingSink, insertFindingsFrom, loadFindingKeys, writeFindings } from 
 import { type PricePassResult, type PriceVisitor, runPricePass } from './price-pass.js';
 import { readFindings } from './read-findings.js';
 import { CHECK_NAMES, CHECKS } from './registry.js';
-import { runSalesPass, type SalesPassResult, type SeriesVisitor } from './sales-pass.js';
+import { runSalesPass, type SalesPassResult, type SalesSource, type SeriesVisitor } from './sales-pass.js';
 import { SharedPass } from './shared-pass.js';
 import { applyWaivers } from './waivers.js';
 
@@ -49,6 +49,8 @@ export interface CheckRunResult {
   readonly checks: readonly CheckSummary[];
   /** Every finding of the run, worst first; `readFindings` pages them for large runs. */
   readonly findings: readonly Finding[];
+  /** Where the sales pass read its rows (null: no check read sales). */
+  readonly salesSource: SalesSource | null;
 }
 
 /** The retail week's first day (epoch day) for `day`, weeks starting on `weekStartsOn` (0 = Sunday). */
@@ -278,7 +280,7 @@ export async function runChecks(
       salesResult?.lastDay == null ? null : formatDay(salesResult.lastDay),
       salesResult?.rows ?? null,
       salesResult?.series ?? null,
-      JSON.stringify(timings),
+      JSON.stringify(salesResult ? { ...timings, 'sales-source': salesResult.source } : timings),
     ],
   );
   return {
@@ -291,5 +293,6 @@ export async function runChecks(
     waived: sum('waived'),
     checks,
     findings: await findings,
+    salesSource: salesResult?.source ?? null,
   };
 }

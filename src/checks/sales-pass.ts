@@ -1,6 +1,7 @@
 import { formatDay } from '../core/days.js';
 import { readCopyBinary } from '../db/binary-copy.js';
-import type { DbSession } from '../db/database.js';
+import type { Db } from '../db/database.js';
+import { BLOCK_DAYS, BlockSink, blockOf, NO_ROW, planBlocks, readBlocks, readTail } from './sales-blocks.js';
 import type { Guarded } from './shared-pass.js';
 import { soldWeekStarts } from './sold-weeks.js';
 
@@ -42,6 +43,7 @@ export interface SalesPassResult {
   readonly rows: number;
   readonly series: number;
   readonly daily: DailyTotals;
+  readonly source: SalesSource;
 }
 
 /** The ordered read every sales-based check shares; the cutoff is an epoch day, inlined as a date literal. */
@@ -92,12 +94,27 @@ class DayAccumulator {
   }
 }
 
+/** Where a pass took its rows from (recorded with the check run). */
+export interface SalesSource {
+  /** Days up to here came from the stored blocks (null: none). */
+  readonly blocksTo: string | null;
+  /** Why the blocks were not (wholly) usable. */
+  readonly reason: string | null;
+  readonly rowsFromBlocks: number;
+  readonly rowsFromSales: number;
+  /** First block the pass rewrote (null: none written; 0 with `all`: every block). */
+  readonly wroteFrom: string | null;
+  readonly wroteBlocks: number;
+}
+
 /**
- * Streams the sales table once in (series_id, day) order by binary COPY, assembling each series
- * into a dense array for the visitors and adding every row to the chain's daily totals.
+ * Streams the sales up to the cutoff once in (series_id, day) order, assembling each series into
+ * a dense array for the visitors and adding every row to the chain's daily totals. The days the
+ * stored blocks hold (sales-blocks.ts) come from them, the rest from `sales` by binary COPY; the
+ * pass then stores the blocks of the days it read from `sales`, for the next pass.
  */
 export async function runSalesPass(
-  db: DbSession,
+  db: Db,
   cutoff: number | null,
   visitors: ReadonlyArray<Guarded<SeriesVisitor>>,
   weekStart: (day: number) => number,
@@ -113,11 +130,22 @@ export async function runSalesPass(
   let rows = 0;
   let series = 0;
 
+  const plan = await planBlocks(db);
+  // Days the blocks give this pass: up to the usable day, and never past the cutoff.
+  const fromBlocks =
+    plan.usable === null ? null : cutoff === null ? plan.usable : Math.min(plan.usable, cutoff);
+  const writesFrom = fromBlocks === null ? null : fromBlocks + 1;
+  const sink =
+    fromBlocks === null || cutoff === null || cutoff > fromBlocks
+      ? new BlockSink(db, plan, writesFrom === null ? null : blockOf(writesFrom))
+      : null;
+
   const emit = () => {
     if (n === 0) return;
     series++;
     const view = dense.subarray(0, last + 1);
     const firstDay = first;
+    sink?.add(current, firstDay, view);
     let sold: Int32Array | undefined;
     const s: SeriesView = {
       seriesId: current,
@@ -132,44 +160,92 @@ export async function runSalesPass(
     for (const v of visitors) v.call((x) => x.series(s));
   };
 
-  // Small batches keep each synchronous stretch of visitor work short, so the server goes on
-  // filling the socket's buffers while Node works instead of waiting for Node to read.
-  const batches = readCopyBinary(db.copyTo(salesCopySql(cutoff)), ['int4', 'date', 'int4'], 8192);
-  for await (const batch of batches) {
-    const sid = batch.columns[0] as Int32Array;
-    const day = batch.columns[1] as Int32Array;
-    const u = batch.columns[2] as Int32Array;
-    rows += batch.length;
-    for (let i = 0; i < batch.length; i++) {
-      const s = sid[i]!;
-      const d = day[i]!;
-      if (s !== current) {
-        emit();
-        current = s;
-        first = d;
-        last = -1;
-        n = 0;
-      }
-      const off = d - first;
-      if (off >= dense.length) {
-        const next = new Float64Array(Math.max(off + 1, dense.length * 2));
-        next.set(dense.subarray(0, last + 1));
-        dense = next;
-      }
-      for (let k = last + 1; k < off; k++) dense[k] = Number.NaN;
-      dense[off] = u[i]!;
-      if (off > last) last = off;
-      n++;
-      totals.add(d, u[i]!);
+  const add = (s: number, d: number, u: number) => {
+    if (s !== current) {
+      emit();
+      current = s;
+      first = d;
+      last = -1;
+      n = 0;
     }
+    const off = d - first;
+    if (off >= dense.length) {
+      const next = new Float64Array(Math.max(off + 1, dense.length * 2));
+      next.set(dense.subarray(0, last + 1));
+      dense = next;
+    }
+    for (let k = last + 1; k < off; k++) dense[k] = Number.NaN;
+    dense[off] = u;
+    if (off > last) last = off;
+    n++;
+    totals.add(d, u);
+  };
+
+  let rowsFromBlocks = 0;
+  let rowsFromSales = 0;
+  try {
+    if (fromBlocks === null) {
+      // Small batches keep each synchronous stretch of visitor work short, so the server goes on
+      // filling the socket's buffers while Node works instead of waiting for Node to read.
+      const batches = readCopyBinary(db.copyTo(salesCopySql(cutoff)), ['int4', 'date', 'int4'], 8192);
+      for await (const batch of batches) {
+        const sid = batch.columns[0] as Int32Array;
+        const day = batch.columns[1] as Int32Array;
+        const u = batch.columns[2] as Int32Array;
+        rowsFromSales += batch.length;
+        for (let i = 0; i < batch.length; i++) add(sid[i]!, day[i]!, u[i]!);
+      }
+    } else {
+      const tail =
+        cutoff !== null && cutoff <= fromBlocks
+          ? { n: 0, sid: new Int32Array(0), day: new Int32Array(0), units: new Int32Array(0) }
+          : await readTail(db, fromBlocks, cutoff);
+      rowsFromSales = tail.n;
+      let t = 0;
+      // Tail rows of every series before `sid` (the series' own block rows come first).
+      const drain = (sid: number) => {
+        for (; t < tail.n && tail.sid[t]! < sid; t++) add(tail.sid[t]!, tail.day[t]!, tail.units[t]!);
+      };
+      let blockSeries = -1;
+      await readBlocks(db, fromBlocks, (sid, day0, view, offset) => {
+        if (sid !== blockSeries) {
+          drain(sid);
+          blockSeries = sid;
+        }
+        const stop = Math.min(BLOCK_DAYS, fromBlocks - day0 + 1);
+        for (let k = 0; k < stop; k++) {
+          const v = view.getInt32(offset + 4 * k, true);
+          if (v === NO_ROW) continue;
+          add(sid, day0 + k, v);
+          rowsFromBlocks++;
+        }
+      });
+      drain(Number.POSITIVE_INFINITY);
+    }
+    emit();
+  } catch (err) {
+    await sink?.finish(null).catch(() => {});
+    throw err;
   }
-  emit();
   const daily = totals.result();
+  // The blocks now hold every row up to the newest day read (later passes read on from there).
+  rows = rowsFromBlocks + rowsFromSales;
+  const grew = rows > 0 && (fromBlocks === null || totals.max > fromBlocks);
+  const stored = sink ? await sink.finish(grew ? totals.max : null) : false;
   return {
     firstDay: rows ? totals.min : null,
     lastDay: rows ? totals.max : null,
     rows,
     series,
     daily,
+    source: {
+      blocksTo: fromBlocks === null ? null : formatDay(fromBlocks),
+      reason: plan.reason,
+      rowsFromBlocks,
+      rowsFromSales,
+      wroteFrom:
+        stored && sink ? (sink.fromBlock === null ? 'all' : formatDay(sink.fromBlock * BLOCK_DAYS)) : null,
+      wroteBlocks: stored && sink ? sink.blocks : 0,
+    },
   };
 }

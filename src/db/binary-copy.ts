@@ -101,6 +101,14 @@ export class CopyBinaryWriter {
     this.pos += 5;
   }
 
+  /** A bytea value. */
+  bytea(v: Uint8Array): void {
+    this.ensure(4 + v.length);
+    this.buf.writeInt32BE(v.length, this.pos);
+    this.buf.set(v, this.pos + 4);
+    this.pos += 4 + v.length;
+  }
+
   text(v: string): void {
     const bytes = encoder.encode(v);
     this.ensure(4 + bytes.length);

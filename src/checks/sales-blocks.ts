@@ -1,0 +1,296 @@
+import { formatDay, parseDay } from '../core/days.js';
+import { CopyBinaryWriter, readCopyBinary } from '../db/binary-copy.js';
+import type { Db, DbSession } from '../db/database.js';
+import { type ChangeMark, changesSince, readChangeMark } from '../jobs/change-log.js';
+
+/**
+ * The checks' compact copy of the sales table (sql/000009.sql): blocks of BLOCK_DAYS days per
+ * series. A pass whose blocks are valid reads the stored days from them (about 4 bytes a day
+ * instead of a 40-byte COPY row, and no sort) and only the days after them from `sales`; every
+ * visitor sees the same dense arrays as from a full read, so findings are unchanged.
+ */
+export const BLOCK_DAYS = 256;
+/** A day of a block without a row (int4's minimum; a stored row holding it is never cached). */
+export const NO_ROW = -2147483648;
+/** A change older than this many days before the covered end makes a full read cheaper than a merge. */
+export const MAX_TAIL_DAYS = 120;
+const BLOCK_BYTES = BLOCK_DAYS * 4;
+
+export const blockOf = (day: number): number => Math.floor(day / BLOCK_DAYS);
+
+interface StateRow {
+  readonly coveredTo: number;
+  readonly last: number;
+  readonly count: number;
+}
+
+/** What a pass may take from the blocks. */
+export interface BlockPlan {
+  /** Days up to here come from the blocks; null: none, read everything from `sales`. */
+  readonly usable: number | null;
+  /** Why the blocks are not (wholly) usable, or null. */
+  readonly reason: string | null;
+  /** The change log before the plan was made: the mark of what this pass writes. */
+  readonly mark: ChangeMark;
+  /** The state as read, so a writer can tell another pass wrote in between. */
+  readonly state: StateRow | null;
+}
+
+/**
+ * Which days the blocks may give: those up to the state's covered day, less any sales changed
+ * since the state's mark (the first changed day and later are read from `sales` again).
+ */
+export async function planBlocks(db: DbSession): Promise<BlockPlan> {
+  const mark = await readChangeMark(db);
+  const r = (
+    await db.query<{ covered_to: string; change_last: string; change_count: string }>(
+      'SELECT covered_to, change_last, change_count FROM sales_blocks_state',
+    )
+  ).rows[0];
+  if (!r) return { usable: null, reason: 'no blocks stored yet', mark, state: null };
+  const state = {
+    coveredTo: parseDay(r.covered_to)!,
+    last: Number(r.change_last),
+    count: Number(r.change_count),
+  };
+  const since = await changesSince(db, { last: state.last, count: state.count });
+  if (since === null) return { usable: null, reason: 'the change log cannot tell what changed', mark, state };
+  let usable = state.coveredTo;
+  let reason: string | null = null;
+  for (const c of since) {
+    if (c.table !== 'sales') continue;
+    if (c.firstDay === null)
+      return { usable: null, reason: 'sales were changed outside the loader', mark, state };
+    if (c.firstDay <= usable) {
+      usable = c.firstDay - 1;
+      reason = `sales of ${formatDay(c.firstDay)} changed`;
+    }
+  }
+  if (state.coveredTo - usable > MAX_TAIL_DAYS)
+    return { usable: null, reason: `${reason}: more than ${MAX_TAIL_DAYS} days to reread`, mark, state };
+  return { usable, reason, mark, state };
+}
+
+/** The sales rows after `after` up to `cutoff` (in series and day order), as flat arrays. */
+export async function readTail(
+  db: DbSession,
+  after: number,
+  cutoff: number | null,
+): Promise<{
+  readonly n: number;
+  readonly sid: Int32Array;
+  readonly day: Int32Array;
+  readonly units: Int32Array;
+}> {
+  const upTo = cutoff === null ? '' : ` AND day <= DATE '${formatDay(cutoff)}'`;
+  const sql = `COPY (SELECT series_id, day, units FROM sales WHERE day > DATE '${formatDay(after)}'${upTo} ORDER BY series_id, day) TO STDOUT (FORMAT binary)`;
+  const parts: Int32Array[][] = [];
+  let n = 0;
+  for await (const b of readCopyBinary(db.copyTo(sql), ['int4', 'date', 'int4'])) {
+    parts.push((b.columns as Int32Array[]).map((c) => c.subarray(0, b.length)));
+    n += b.length;
+  }
+  const cat = (k: number) => {
+    const out = new Int32Array(n);
+    let o = 0;
+    for (const p of parts) {
+      out.set(p[k]!, o);
+      o += p[k]!.length;
+    }
+    return out;
+  };
+  return { n, sid: cat(0), day: cat(1), units: cat(2) };
+}
+
+/**
+ * Streams the blocks holding days up to `upTo` in (series, block) order, calling `row` with each
+ * block's series, first day and its days as little-endian int4 at `offset` of `view`.
+ */
+export async function readBlocks(
+  db: DbSession,
+  upTo: number,
+  row: (seriesId: number, firstDay: number, view: DataView, offset: number) => void,
+): Promise<number> {
+  const sql = `COPY (SELECT series_id, block, units FROM sales_blocks WHERE block <= ${blockOf(upTo)} ORDER BY series_id, block) TO STDOUT (FORMAT binary)`;
+  // Each tuple: int16 field count, then int4 series_id, int4 block, bytea of BLOCK_BYTES, each
+  // behind its int32 length.
+  const TUPLE = 2 + 8 + 8 + 4 + BLOCK_BYTES;
+  let pending: Buffer = Buffer.alloc(0);
+  let header = false;
+  let blocks = 0;
+  for await (const chunk of db.copyTo(sql)) {
+    pending = pending.length
+      ? Buffer.concat([pending, chunk])
+      : Buffer.from(chunk.buffer, chunk.byteOffset, chunk.byteLength);
+    let p = 0;
+    if (!header) {
+      if (pending.length < 19) continue;
+      p = 19 + pending.readInt32BE(15);
+      header = true;
+    }
+    const dv = new DataView(pending.buffer, pending.byteOffset, pending.byteLength);
+    while (p + 2 <= pending.length) {
+      const fields = dv.getInt16(p);
+      if (fields === -1) {
+        p += 2;
+        break;
+      }
+      if (p + TUPLE > pending.length) break;
+      if (fields !== 3 || dv.getInt32(p + 2) !== 4 || dv.getInt32(p + 18) !== BLOCK_BYTES)
+        throw new Error('sales_blocks: a block row of an unexpected shape');
+      row(dv.getInt32(p + 6), dv.getInt32(p + 14) * BLOCK_DAYS, dv, p + 22);
+      blocks++;
+      p += TUPLE;
+    }
+    pending = pending.subarray(p);
+  }
+  return blocks;
+}
+
+/** Async queue of chunks: the pass pushes, a COPY reads. */
+class ChunkQueue {
+  private readonly items: Uint8Array[] = [];
+  private closed = false;
+  private wake: (() => void) | null = null;
+
+  push(chunks: readonly Uint8Array[]): void {
+    if (chunks.length === 0) return;
+    this.items.push(...chunks);
+    this.wake?.();
+  }
+
+  close(): void {
+    this.closed = true;
+    this.wake?.();
+  }
+
+  async *drain(): AsyncGenerator<Uint8Array> {
+    for (;;) {
+      const next = this.items.shift();
+      if (next) {
+        yield next;
+        continue;
+      }
+      if (this.closed) return;
+      await new Promise<void>((res) => {
+        this.wake = res;
+      });
+      this.wake = null;
+    }
+  }
+}
+
+/** The blocks a pass rewrites: every block of each series from `fromBlock` on. */
+export class BlockSink {
+  private readonly writer = new CopyBinaryWriter();
+  private readonly queue = new ChunkQueue();
+  private readonly bytes = new Uint8Array(BLOCK_BYTES);
+  private readonly view = new DataView(this.bytes.buffer);
+  private finishWith!: (coveredTo: number | null) => void;
+  private readonly finished = new Promise<number | null>((res) => {
+    this.finishWith = res;
+  });
+  private written: Promise<boolean> | null = null;
+  /** A stored value equal to NO_ROW: this pass's blocks are not written. */
+  private unencodable = false;
+  /** Blocks encoded. */
+  blocks = 0;
+
+  constructor(
+    private readonly db: Db,
+    private readonly plan: BlockPlan,
+    /** First block rewritten; null: every block (the store is replaced). */
+    readonly fromBlock: number | null,
+  ) {
+    // On a server the COPY streams beside the pass; embedded (one connection) it follows it.
+    if (db.parallelism > 1) this.written = this.write(this.queue.drain());
+  }
+
+  /** Encodes one series (a dense array from `firstDay`, NaN = no row) from `fromBlock` on. */
+  add(seriesId: number, firstDay: number, units: Float64Array): void {
+    if (this.unencodable || units.length === 0) return;
+    const lastDay = firstDay + units.length - 1;
+    const w = this.writer;
+    const from = Math.max(this.fromBlock ?? blockOf(firstDay), blockOf(firstDay));
+    for (let b = from; b <= blockOf(lastDay); b++) {
+      const start = b * BLOCK_DAYS;
+      let present = 0;
+      for (let k = 0; k < BLOCK_DAYS; k++) {
+        const i = start + k - firstDay;
+        const v = i >= 0 && i < units.length ? units[i]! : Number.NaN;
+        if (v === NO_ROW) this.unencodable = true;
+        if (Number.isNaN(v)) this.view.setInt32(4 * k, NO_ROW, true);
+        else {
+          this.view.setInt32(4 * k, v, true);
+          present++;
+        }
+      }
+      if (present === 0) continue;
+      w.row(3);
+      w.int4(seriesId);
+      w.int4(b);
+      w.bytea(this.bytes);
+      this.blocks++;
+    }
+    this.queue.push(w.take());
+  }
+
+  /**
+   * Ends the pass: with `coveredTo` (the newest day it read), stores the blocks and the state;
+   * with null, discards them. Resolves with whether they were stored (false when another pass
+   * changed the state meanwhile or holds the write).
+   */
+  async finish(coveredTo: number | null): Promise<boolean> {
+    const keep = coveredTo !== null && !this.unencodable;
+    this.queue.push(this.writer.end());
+    this.queue.close();
+    this.finishWith(keep ? coveredTo : null);
+    if (!this.written) this.written = keep ? this.write(this.queue.drain()) : Promise.resolve(false);
+    return this.written;
+  }
+
+  private async write(source: AsyncIterable<Uint8Array>): Promise<boolean> {
+    const aborted = new Error('blocks not written');
+    try {
+      return await this.db.transaction(async (tx) => {
+        const got = await tx.query<{ ok: boolean }>('SELECT pg_try_advisory_xact_lock(hashtext($1)) AS ok', [
+          `larder.sales_blocks:${this.db.schema}`,
+        ]);
+        const r = (
+          await tx.query<{ covered_to: string; change_last: string; change_count: string }>(
+            'SELECT covered_to, change_last, change_count FROM sales_blocks_state FOR UPDATE',
+          )
+        ).rows[0];
+        const s = this.plan.state;
+        const same = r
+          ? s !== null &&
+            parseDay(r.covered_to) === s.coveredTo &&
+            Number(r.change_last) === s.last &&
+            Number(r.change_count) === s.count
+          : s === null;
+        if (!got.rows[0]!.ok || !same) {
+          for await (const _ of source); // let the pass go on pushing into nothing
+          return false;
+        }
+        if (this.fromBlock === null) await tx.exec('DELETE FROM sales_blocks');
+        else await tx.query('DELETE FROM sales_blocks WHERE block >= $1', [this.fromBlock]);
+        const copied = tx.copyFrom(
+          'COPY sales_blocks (series_id, block, units) FROM STDIN (FORMAT binary)',
+          source,
+        );
+        const [coveredTo] = await Promise.all([this.finished, copied]);
+        if (coveredTo === null) throw aborted;
+        await tx.query(
+          `INSERT INTO sales_blocks_state (covered_to, change_last, change_count) VALUES ($1, $2, $3)
+           ON CONFLICT (only_row) DO UPDATE SET covered_to = EXCLUDED.covered_to,
+             change_last = EXCLUDED.change_last, change_count = EXCLUDED.change_count, written_at = now()`,
+          [formatDay(coveredTo), this.plan.mark.last, this.plan.mark.count],
+        );
+        return true;
+      });
+    } catch (err) {
+      if (err === aborted) return false;
+      throw err;
+    }
+  }
+}
