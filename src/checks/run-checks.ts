@@ -51,6 +51,8 @@ export interface CheckRunResult {
   readonly findings: readonly Finding[];
   /** Where the sales pass read its rows (null: no check read sales). */
   readonly salesSource: SalesSource | null;
+  /** Where the prices pass read its rows (null: no check read prices). */
+  readonly pricesSource: PricePassResult['source'] | null;
 }
 
 /** The retail week's first day (epoch day) for `day`, weeks starting on `weekStartsOn` (0 = Sunday). */
@@ -127,9 +129,11 @@ export async function runChecks(
   };
 
   const readers = (pass: PassName) => selected.filter((c) => c.reads.includes(pass)).length;
-  const pricePass = new SharedPass<PriceVisitor, PricePassResult>(readers('prices'), (v) =>
-    timed('pass:prices', () => runPricePass(db, cutoff, v)),
-  );
+  let pricesResult: PricePassResult | undefined;
+  const pricePass = new SharedPass<PriceVisitor, PricePassResult>(readers('prices'), async (v) => {
+    pricesResult = await timed('pass:prices', () => runPricePass(db, cutoff, v));
+    return pricesResult;
+  });
   let salesResult: SalesPassResult | undefined;
   // The two passes run side by side (checks that need both match them up afterwards).
   const salesPass = new SharedPass<SeriesVisitor, SalesPassResult>(readers('sales'), async (v) => {
@@ -280,7 +284,11 @@ export async function runChecks(
       salesResult?.lastDay == null ? null : formatDay(salesResult.lastDay),
       salesResult?.rows ?? null,
       salesResult?.series ?? null,
-      JSON.stringify(salesResult ? { ...timings, 'sales-source': salesResult.source } : timings),
+      JSON.stringify({
+        ...timings,
+        ...(salesResult ? { 'sales-source': salesResult.source } : {}),
+        ...(pricesResult ? { 'prices-source': pricesResult.source } : {}),
+      }),
     ],
   );
   return {
@@ -294,5 +302,6 @@ export async function runChecks(
     checks,
     findings: await findings,
     salesSource: salesResult?.source ?? null,
+    pricesSource: pricesResult?.source ?? null,
   };
 }

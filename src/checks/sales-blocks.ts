@@ -1,5 +1,6 @@
 import { formatDay, parseDay } from '../core/days.js';
 import { CopyBinaryWriter, readCopyBinary } from '../db/binary-copy.js';
+import { CacheSink, type CacheState, readCacheState } from './cache-sink.js';
 import type { Db, DbSession } from '../db/database.js';
 import { type ChangeMark, changesSince, readChangeMark } from '../jobs/change-log.js';
 
@@ -18,12 +19,6 @@ const BLOCK_BYTES = BLOCK_DAYS * 4;
 
 export const blockOf = (day: number): number => Math.floor(day / BLOCK_DAYS);
 
-interface StateRow {
-  readonly coveredTo: number;
-  readonly last: number;
-  readonly count: number;
-}
-
 /** What a pass may take from the blocks. */
 export interface BlockPlan {
   /** Days up to here come from the blocks; null: none, read everything from `sales`. */
@@ -33,7 +28,7 @@ export interface BlockPlan {
   /** The change log before the plan was made: the mark of what this pass writes. */
   readonly mark: ChangeMark;
   /** The state as read, so a writer can tell another pass wrote in between. */
-  readonly state: StateRow | null;
+  readonly state: CacheState | null;
 }
 
 /**
@@ -42,17 +37,8 @@ export interface BlockPlan {
  */
 export async function planBlocks(db: DbSession): Promise<BlockPlan> {
   const mark = await readChangeMark(db);
-  const r = (
-    await db.query<{ covered_to: string; change_last: string; change_count: string }>(
-      'SELECT covered_to, change_last, change_count FROM sales_blocks_state',
-    )
-  ).rows[0];
-  if (!r) return { usable: null, reason: 'no blocks stored yet', mark, state: null };
-  const state = {
-    coveredTo: parseDay(r.covered_to)!,
-    last: Number(r.change_last),
-    count: Number(r.change_count),
-  };
+  const state = await readCacheState(db, 'sales_blocks_state');
+  if (!state) return { usable: null, reason: 'no blocks stored yet', mark, state: null };
   const since = await changesSince(db, { last: state.last, count: state.count });
   if (since === null) return { usable: null, reason: 'the change log cannot tell what changed', mark, state };
   let usable = state.coveredTo;
@@ -147,63 +133,34 @@ export async function readBlocks(
   return blocks;
 }
 
-/** Async queue of chunks: the pass pushes, a COPY reads. */
-class ChunkQueue {
-  private readonly items: Uint8Array[] = [];
-  private closed = false;
-  private wake: (() => void) | null = null;
-
-  push(chunks: readonly Uint8Array[]): void {
-    if (chunks.length === 0) return;
-    this.items.push(...chunks);
-    this.wake?.();
-  }
-
-  close(): void {
-    this.closed = true;
-    this.wake?.();
-  }
-
-  async *drain(): AsyncGenerator<Uint8Array> {
-    for (;;) {
-      const next = this.items.shift();
-      if (next) {
-        yield next;
-        continue;
-      }
-      if (this.closed) return;
-      await new Promise<void>((res) => {
-        this.wake = res;
-      });
-      this.wake = null;
-    }
-  }
-}
-
 /** The blocks a pass rewrites: every block of each series from `fromBlock` on. */
 export class BlockSink {
   private readonly writer = new CopyBinaryWriter();
-  private readonly queue = new ChunkQueue();
   private readonly bytes = new Uint8Array(BLOCK_BYTES);
   private readonly view = new DataView(this.bytes.buffer);
-  private finishWith!: (coveredTo: number | null) => void;
-  private readonly finished = new Promise<number | null>((res) => {
-    this.finishWith = res;
-  });
-  private written: Promise<boolean> | null = null;
+  private readonly sink: CacheSink;
   /** A stored value equal to NO_ROW: this pass's blocks are not written. */
   private unencodable = false;
   /** Blocks encoded. */
   blocks = 0;
 
   constructor(
-    private readonly db: Db,
-    private readonly plan: BlockPlan,
+    db: Db,
+    plan: BlockPlan,
     /** First block rewritten; null: every block (the store is replaced). */
     readonly fromBlock: number | null,
   ) {
-    // On a server the COPY streams beside the pass; embedded (one connection) it follows it.
-    if (db.parallelism > 1) this.written = this.write(this.queue.drain());
+    this.sink = new CacheSink(db, {
+      lockKey: `larder.sales_blocks:${db.schema}`,
+      stateTable: 'sales_blocks_state',
+      state: plan.state,
+      mark: plan.mark,
+      clear:
+        fromBlock === null
+          ? ['DELETE FROM sales_blocks', []]
+          : ['DELETE FROM sales_blocks WHERE block >= $1', [fromBlock]],
+      copySql: 'COPY sales_blocks (series_id, block, units) FROM STDIN (FORMAT binary)',
+    });
   }
 
   /** Encodes one series (a dense array from `firstDay`, NaN = no row) from `fromBlock` on. */
@@ -232,65 +189,15 @@ export class BlockSink {
       w.bytea(this.bytes);
       this.blocks++;
     }
-    this.queue.push(w.take());
+    this.sink.push(w.take());
   }
 
   /**
    * Ends the pass: with `coveredTo` (the newest day it read), stores the blocks and the state;
-   * with null, discards them. Resolves with whether they were stored (false when another pass
-   * changed the state meanwhile or holds the write).
+   * with null, discards them. Resolves with whether they were stored.
    */
-  async finish(coveredTo: number | null): Promise<boolean> {
-    const keep = coveredTo !== null && !this.unencodable;
-    this.queue.push(this.writer.end());
-    this.queue.close();
-    this.finishWith(keep ? coveredTo : null);
-    if (!this.written) this.written = keep ? this.write(this.queue.drain()) : Promise.resolve(false);
-    return this.written;
-  }
-
-  private async write(source: AsyncIterable<Uint8Array>): Promise<boolean> {
-    const aborted = new Error('blocks not written');
-    try {
-      return await this.db.transaction(async (tx) => {
-        const got = await tx.query<{ ok: boolean }>('SELECT pg_try_advisory_xact_lock(hashtext($1)) AS ok', [
-          `larder.sales_blocks:${this.db.schema}`,
-        ]);
-        const r = (
-          await tx.query<{ covered_to: string; change_last: string; change_count: string }>(
-            'SELECT covered_to, change_last, change_count FROM sales_blocks_state FOR UPDATE',
-          )
-        ).rows[0];
-        const s = this.plan.state;
-        const same = r
-          ? s !== null &&
-            parseDay(r.covered_to) === s.coveredTo &&
-            Number(r.change_last) === s.last &&
-            Number(r.change_count) === s.count
-          : s === null;
-        if (!got.rows[0]!.ok || !same) {
-          for await (const _ of source); // let the pass go on pushing into nothing
-          return false;
-        }
-        if (this.fromBlock === null) await tx.exec('DELETE FROM sales_blocks');
-        else await tx.query('DELETE FROM sales_blocks WHERE block >= $1', [this.fromBlock]);
-        const copied = tx.copyFrom(
-          'COPY sales_blocks (series_id, block, units) FROM STDIN (FORMAT binary)',
-          source,
-        );
-        const [coveredTo] = await Promise.all([this.finished, copied]);
-        if (coveredTo === null) throw aborted;
-        await tx.query(
-          `INSERT INTO sales_blocks_state (covered_to, change_last, change_count) VALUES ($1, $2, $3)
-           ON CONFLICT (only_row) DO UPDATE SET covered_to = EXCLUDED.covered_to,
-             change_last = EXCLUDED.change_last, change_count = EXCLUDED.change_count, written_at = now()`,
-          [formatDay(coveredTo), this.plan.mark.last, this.plan.mark.count],
-        );
-        return true;
-      });
-    } catch (err) {
-      if (err === aborted) return false;
-      throw err;
-    }
+  finish(coveredTo: number | null): Promise<boolean> {
+    this.sink.push(this.writer.end());
+    return this.sink.finish(this.unencodable ? null : coveredTo);
   }
 }

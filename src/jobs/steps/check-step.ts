@@ -27,7 +27,7 @@ export const checkStep: PipelineStep = {
       infos: result.infos,
       waived: result.waived,
       // Where the sales pass read from: the stored blocks up to a day, `sales` after it.
-      scope: result.salesSource,
+      scope: { sales: result.salesSource, prices: result.pricesSource },
       checks: result.checks
         .filter((c) => c.blocking + c.warnings > 0)
         .map((c) => ({ check: c.check, status: c.status, blocking: c.blocking, warnings: c.warnings })),

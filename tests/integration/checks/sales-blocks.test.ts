@@ -85,6 +85,29 @@ async function loadDay(d: string, fault: Fault, mode: 'append' | 'replace' = 'ap
   expect(r.ok).toBe(true);
 }
 
+/** Replaces one week of prices (the week holding `d`) through the loader; `price` maps the old price. */
+async function replacePriceWeek(
+  d: string,
+  price: (item: string, store: string, p: number) => number,
+): Promise<string> {
+  const { db } = t();
+  const rows = (
+    await db.query<{ item_id: string; store_id: string; week_start: string; price: string }>(
+      `SELECT item_id, store_id, week_start::text, price::text FROM prices
+       WHERE week_start = (SELECT max(week_start) FROM prices WHERE week_start <= $1::date) ORDER BY 1, 2`,
+      [d],
+    )
+  ).rows;
+  const file = join(dir, `prices_${d}.csv`);
+  const lines = rows.map(
+    (r) =>
+      `${r.item_id},${r.store_id},${r.week_start},${price(r.item_id, r.store_id, Number(r.price)).toFixed(2)}`,
+  );
+  writeFileSync(file, `item_id,store_id,week_start,price\n${lines.join('\n')}\n`);
+  expect((await loadFiles(db, config, { files: { prices: file }, mode: 'replace' })).ok).toBe(true);
+  return rows[0]!.week_start;
+}
+
 /** Every finding of a run, in a fixed order, without the run's own ids. */
 function findingsOf(r: CheckRunResult) {
   return r.findings
@@ -102,9 +125,10 @@ async function check(db: Db, cutoff: string): Promise<CheckRunResult> {
 /** The run with the blocks as they are, then a reference run after the blocks are dropped. */
 async function compare(db: Db, cutoff: string) {
   const r = await check(db, cutoff);
-  await t().db.exec('DELETE FROM sales_blocks_state');
+  await t().db.exec('DELETE FROM sales_blocks_state; DELETE FROM price_history_state');
   const ref = await check(db, cutoff);
   expect(ref.salesSource?.blocksTo).toBeNull();
+  expect(ref.pricesSource?.historyTo).toBeNull();
   expect(findingsOf(r)).toEqual(findingsOf(ref));
   expect(r.checks.map((c) => [c.check, c.status, c.warnings, c.infos])).toEqual(
     ref.checks.map((c) => [c.check, c.status, c.warnings, c.infos]),
@@ -127,6 +151,11 @@ describe('the sales pass reads stored blocks and the new days only', () => {
     const { db } = t();
     const rows = Number((await db.query<{ n: number }>('SELECT count(*)::int AS n FROM series')).rows[0]!.n);
     for (let k = 1; k <= 6; k++) {
+      // A price spike in a week the stored prices do not cover yet (the week of day 6).
+      if (k === 2)
+        await replacePriceWeek(day(6), (item, store, p) =>
+          item === 'it003' && store === 'st02' ? p * 4 : p,
+        );
       await loadDay(day(k), (item, store, u) => {
         if (item === 'it001' && store === 'st02') return 0; // a run of zeros opens
         if (item === 'it002' && store === 'st02' && k === 3) return null; // a missing row
@@ -137,6 +166,7 @@ describe('the sales pass reads stored blocks and the new days only', () => {
       const { r } = await compare(db, day(k));
       // The previous day's reference run stored blocks up to day k - 1: only day k is read.
       expect(r.salesSource).toMatchObject({ blocksTo: day(k - 1), reason: null });
+      expect(r.pricesSource?.historyTo).not.toBeNull();
       expect(r.salesSource!.rowsFromSales).toBe(k === 3 ? rows - 1 : rows);
       // It rewrites the block holding day k onwards (the boundary's own block from day 4 on).
       expect(r.salesSource!.wroteFrom).toBe(formatDay(blockOf(BOUNDARY - 4 + k) * BLOCK_DAYS));
@@ -154,6 +184,18 @@ describe('the sales pass reads stored blocks and the new days only', () => {
     expect(r.salesSource).toMatchObject({ blocksTo: day(-21), reason: `sales of ${day(-20)} changed` });
   });
 
+  test('a correction of a stored price week rereads every price; the result equals a full pass', async () => {
+    const { db } = t();
+    await check(db, day(8));
+    const week = await replacePriceWeek(day(-50), (item, _s, p) => (item === 'it001' ? p / 4 : p));
+    const { r } = await compare(db, day(8));
+    expect(r.pricesSource).toMatchObject({
+      historyTo: null,
+      reason: `prices of the week of ${week} changed`,
+    });
+    expect(r.findings.some((f) => f.check === 'price-spikes')).toBe(true);
+  });
+
   test('a write outside the loader makes the next pass read everything', async () => {
     const { db } = t();
     await check(db, day(8));
@@ -167,7 +209,8 @@ describe('the sales pass reads stored blocks and the new days only', () => {
     await check(db, day(8));
     const r = await check(db, day(2));
     expect(r.salesSource).toMatchObject({ blocksTo: day(2), rowsFromSales: 0, wroteFrom: null });
-    await db.exec('DELETE FROM sales_blocks_state');
+    expect(r.pricesSource?.historyTo).not.toBeNull();
+    await db.exec('DELETE FROM sales_blocks_state; DELETE FROM price_history_state');
     const ref = await check(db, day(2));
     expect(findingsOf(r)).toEqual(findingsOf(ref));
   });
