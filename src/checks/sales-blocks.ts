@@ -1,4 +1,4 @@
-import { formatDay, parseDay } from '../core/days.js';
+import { formatDay } from '../core/days.js';
 import { CopyBinaryWriter, readCopyBinary } from '../db/binary-copy.js';
 import { CacheSink, type CacheState, readCacheState } from './cache-sink.js';
 import type { Db, DbSession } from '../db/database.js';

@@ -462,7 +462,9 @@ export async function finishRefresh(
     const dropped = await deleteRetiredRows(tx, plan.previousTable, plan.trainFrom);
     const added = (
       await tx.query<{ train: number; predict: number }>(
-        `WITH i AS (INSERT INTO ${prevTable} SELECT * FROM ${delta} ORDER BY series_id, day RETURNING is_predict)
+        // In the delta's own order (each partition's rows in series order): sorting them first
+        // cost a third of the insert and spilled to disk, and readers order what they read anyway.
+        `WITH i AS (INSERT INTO ${prevTable} SELECT * FROM ${delta} RETURNING is_predict)
          SELECT count(*) FILTER (WHERE NOT is_predict)::int8 AS train, count(*) FILTER (WHERE is_predict)::int8 AS predict FROM i`,
       )
     ).rows[0]!;
