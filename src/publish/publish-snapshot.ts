@@ -188,6 +188,9 @@ async function writeVersion(
     `CREATE INDEX IF NOT EXISTS ${quoteIdent(predictIndexName(entry.tableName))}
      ON ${quoteIdent(entry.tableName)} (series_id, day) WHERE is_predict`,
   );
+  // The planner's cost for 40-odd float8 columns crosses the JIT threshold, and compiling the
+  // row deforming took longer than the whole read of the prediction rows.
+  await s.exec('SET jit = off');
   const cols = entry.columns.map((c) => quoteIdent(c.name)).join(', ');
   const copy = `COPY (SELECT series_id, day${F ? `, ${cols}` : ''} FROM ${quoteIdent(entry.tableName)}
     WHERE is_predict) TO STDOUT (FORMAT binary)`;
@@ -237,6 +240,8 @@ async function writeVersion(
     // The session runs more statements after this one (recording the failure): finish the COPY.
     await source.drain();
     throw err;
+  } finally {
+    await s.exec('RESET jit').catch(() => {}); // a broken connection keeps the first error
   }
   await flush();
   if (open.size > 0) {
