@@ -168,8 +168,8 @@ async function timing(url: string, scale: number, reuse: boolean) {
     const last = (await db.query<{ d: string }>('SELECT max(day)::text AS d FROM sales')).rows[0]!.d;
     await readFloor(db); // warm the page cache
     const before = await readFloor(db);
-    // Cold: no stored blocks, so the pass reads every row from `sales` (and stores the blocks).
-    await db.exec('DELETE FROM sales_blocks_state');
+    // Cold: no stored copies, so the passes read every row from `sales` and `prices` (and store them).
+    await db.exec('DELETE FROM sales_blocks_state; DELETE FROM price_history_state');
     const t0 = performance.now();
     const r = await runChecks(db, config, { today: last });
     const checks = (performance.now() - t0) / 1000;
