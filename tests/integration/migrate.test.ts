@@ -22,7 +22,7 @@ test('two migrators racing on a fresh schema both succeed and apply each file on
   const b = openPgDatabase(url, schema, 1);
   try {
     const [ra, rb] = await Promise.all([migrate(a), migrate(b)]);
-    expect([...ra, ...rb].sort()).toEqual(listMigrations().map((m) => m.id));
+    expect([...ra, ...rb].sort((x, y) => x - y)).toEqual(listMigrations().map((m) => m.id));
   } finally {
     await a.exec(`DROP SCHEMA "${schema}" CASCADE`);
     await a.close();
