@@ -12,7 +12,7 @@ import {
   resolveFeatureSet,
 } from '../features/feature-set.js';
 import { type GroupLevel, LEVELS } from '../features/group-levels.js';
-import { dataFingerprint, type FingerprintPart } from './fingerprint.js';
+import { type DataFingerprint, dataFingerprint, type FingerprintPart } from './fingerprint.js';
 import { stageChainGroups } from './chain-groups.js';
 import { chainLevels } from './group-stage.js';
 import { trainingOrigins } from './series-rows.js';
@@ -27,7 +27,21 @@ export interface BuildRequest {
 /** Internal options (tests, the audit): build a compiled set instead of the config's. */
 export interface BuildOptions {
   readonly featureSet?: ResolvedFeatureSet;
+  /**
+   * In-process builds (`buildSnapshot`): reads the partitions while the plan fingerprints the
+   * data, and sums the chain-wide group totals from those reads instead of staging them in a
+   * pass of their own. Called with the plan as it will be, less its data fingerprint, and
+   * only when every partition's reads cover the group days and fit `IN_PROCESS_CELLS`; the
+   * plan then has no group table, and only this process can build its partitions.
+   */
+  readonly alongside?: (draft: BuildPlan) => Promise<void>;
 }
+
+/**
+ * Most dense daily units (8 bytes each) an in-process build holds at once: every partition is
+ * read before any computes, so the chain's history sits in memory (57M sales rows: 456 MB).
+ */
+export const IN_PROCESS_CELLS = 2 ** 27;
 
 /**
  * A planned build, serialisable as JSON so partitions can run in other processes: they build
@@ -158,7 +172,20 @@ export async function planBuild(
   if (from > cutoff) throw new UsageError(`from ${formatDay(from)} is after the cutoff ${formatDay(cutoff)}`);
   const w = buildWindow(set, cutoff, from);
   const table = stagingName(set.name, cutoff);
-  const groupTable = w.chain.length ? `${table}_g` : null;
+  // Partitions read sales from salesFrom (null: every day); the chain totals need groupFrom on.
+  const covers = w.chain.length === 0 || w.salesFrom === null || w.salesFrom <= w.groupFrom;
+  let inProcess = false;
+  if (opts.alongside && covers) {
+    const est = (
+      await db.query<{ series: number; sales: number }>(
+        `SELECT (SELECT count(*) FROM series)::int8 AS series,
+           (SELECT greatest(reltuples, 0) FROM pg_class WHERE oid = 'sales'::regclass)::int8 AS sales`,
+      )
+    ).rows[0]!;
+    const cells = w.salesFrom === null ? Number(est.sales) : Number(est.series) * (cutoff - w.salesFrom + 1);
+    inProcess = cells <= IN_PROCESS_CELLS;
+  }
+  const groupTable = w.chain.length && !inProcess ? `${table}_g` : null;
 
   const partitions = (
     await db.query<{ store_id: string }>('SELECT DISTINCT store_id FROM series ORDER BY store_id')
@@ -183,16 +210,7 @@ export async function planBuild(
       return v;
     };
     const planTimings: Record<string, number> = {};
-    const [fp] = await Promise.all([
-      timed(
-        'fingerprintMs',
-        dataFingerprint((fn) => db.session(fn), cutoff, w.priceBoundary),
-      ),
-      groupTable
-        ? timed('groupsMs', stageChainGroups(db, groupTable, w.chain, w.groupFrom, cutoff, concurrency))
-        : Promise.resolve(),
-    ]);
-    const plan: BuildPlan = {
+    const draft = (fp: DataFingerprint): BuildPlan => ({
       version: 1,
       set: set.name,
       cutoff: formatDay(cutoff),
@@ -217,7 +235,20 @@ export async function planBuild(
       loadMark: { batches: Number(mark.n), lastBatch: Number(mark.last) },
       plannedAt: new Date().toISOString(),
       timings: planTimings,
-    };
+    });
+    const [fp] = await Promise.all([
+      timed(
+        'fingerprintMs',
+        dataFingerprint((fn) => db.session(fn), cutoff, w.priceBoundary),
+      ),
+      groupTable
+        ? timed('groupsMs', stageChainGroups(db, groupTable, w.chain, w.groupFrom, cutoff, concurrency))
+        : Promise.resolve(),
+      inProcess && opts.alongside
+        ? timed('readsMs', opts.alongside(draft({ fingerprint: '', parts: {} })))
+        : Promise.resolve(),
+    ]);
+    const plan = draft(fp);
     await db.transaction(async (tx) => {
       await tx.exec(snapshotTableDdl(table, set));
       await tx.query(

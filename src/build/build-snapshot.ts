@@ -2,7 +2,16 @@ import { availableParallelism } from 'node:os';
 import type { Config } from '../config/config.js';
 import type { Db } from '../db/database.js';
 import { type BuildOptions, type BuildRequest, planBuild } from './build-plan.js';
-import { buildPartition, type PartitionResult } from './build-partition.js';
+import { parseDay } from '../core/days.js';
+import { type BuildPlan, planFeatureSet } from './build-plan.js';
+import {
+  buildPartition,
+  type PartitionData,
+  type PartitionResult,
+  readPartition,
+} from './build-partition.js';
+import type { GroupMap } from './group-stage.js';
+import { addGroupTotals } from './partition-input.js';
 import { abortBuild, finishBuild } from './finish-build.js';
 import type { SnapshotInfo } from './snapshot-catalogue.js';
 
@@ -25,10 +34,32 @@ export async function buildSnapshot(
   opts: SnapshotBuildOptions = {},
 ): Promise<SnapshotInfo> {
   const t0 = performance.now();
-  const plan = await planBuild(db, config, req, opts);
+  const limit = Math.max(1, opts.concurrency ?? Math.min(db.parallelism, availableParallelism()));
+  // Read every partition while the plan fingerprints the data, summing the chain-wide group
+  // totals from the same reads: no separate pass over the sales, nothing staged. The chain
+  // levels need every store before any series computes, so all inputs are held until then.
+  const read = new Map<string, PartitionData>();
+  const chainGroups: GroupMap = new Map();
+  const alongside = async (draft: BuildPlan) => {
+    const set = planFeatureSet(draft);
+    const groupFrom = parseDay(draft.groupFrom)!;
+    const C = parseDay(draft.cutoff)!;
+    await overPartitions(draft.partitions, limit, (p) =>
+      db.session(async (s) => {
+        await s.exec('SET jit = off');
+        try {
+          const data = await readPartition(s, draft, set, p, { chainGroups });
+          addGroupTotals(chainGroups, data.series, draft.chainLevels, data.base, groupFrom, C);
+          read.set(p, data);
+        } finally {
+          await s.exec('RESET jit');
+        }
+      }),
+    );
+  };
+  const plan = await planBuild(db, config, req, { ...opts, alongside });
   const planMs = performance.now() - t0;
   try {
-    const limit = Math.max(1, opts.concurrency ?? Math.min(db.parallelism, availableParallelism()));
     const queue = [...plan.partitions];
     let done = 0;
     const t1 = performance.now();
@@ -36,7 +67,12 @@ export async function buildSnapshot(
       for (;;) {
         const p = queue.shift();
         if (p === undefined) return;
-        const r = await buildPartition(db, config, plan, p, { allowUnsafe: plan.unsafe });
+        const data = read.get(p);
+        read.delete(p);
+        const r = await buildPartition(db, config, plan, p, {
+          allowUnsafe: plan.unsafe,
+          ...(data ? { data } : {}),
+        });
         done++;
         opts.onPartition?.(r, done, plan.partitions.length);
       }
@@ -62,4 +98,18 @@ export async function buildSnapshot(
     await abortBuild(db, plan).catch(() => {});
     throw err;
   }
+}
+
+/** Runs `fn` over the partitions, `limit` at a time. */
+async function overPartitions(
+  parts: readonly string[],
+  limit: number,
+  fn: (p: string) => Promise<void>,
+): Promise<void> {
+  const queue = [...parts];
+  await Promise.all(
+    Array.from({ length: Math.max(1, Math.min(limit, parts.length)) }, async () => {
+      for (let p = queue.shift(); p !== undefined; p = queue.shift()) await fn(p);
+    }),
+  );
 }

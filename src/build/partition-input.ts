@@ -124,10 +124,31 @@ export function storeGroups(
   cutoff: number,
 ): Map<GroupLevel, Map<string, GroupSeries>> {
   const out = new Map<GroupLevel, Map<string, GroupSeries>>();
+  addGroupTotals(out, series, levels, salesBase, groupBase, cutoff);
+  return out;
+}
+
+/**
+ * Adds the units of `series` (dense from `salesBase`) to the daily totals of their groups at
+ * `levels` over days groupBase..cutoff: store levels from one partition, or chain levels from
+ * every partition of an in-process build in turn. The totals are sums of integers in float64,
+ * exact below 2^53, so the order series are added in does not change them.
+ */
+export function addGroupTotals(
+  into: Map<GroupLevel, Map<string, GroupSeries>>,
+  series: readonly PartitionSeries[],
+  levels: readonly GroupLevel[],
+  salesBase: number,
+  groupBase: number,
+  cutoff: number,
+): void {
   const len = cutoff - groupBase + 1;
   for (const level of levels) {
-    const byKey = new Map<string, GroupSeries>();
-    out.set(level, byKey);
+    let byKey = into.get(level);
+    if (!byKey) {
+      byKey = new Map<string, GroupSeries>();
+      into.set(level, byKey);
+    }
     for (const x of series) {
       const key = x.keys[level];
       if (key === null) continue;
@@ -147,7 +168,6 @@ export function storeGroups(
       }
     }
   }
-  return out;
 }
 
 /**
