@@ -11,6 +11,7 @@ import { stockoutMask } from '../features/stockout-mask.js';
 import { type StockoutState, stockoutStateOf } from '../features/stockout-state.js';
 import { type BuildPlan, planFeatureSet } from './build-plan.js';
 import { computeSeriesFeatures, featureScratch } from './compute-series.js';
+import type { SalesChecksum } from './fingerprint.js';
 import { type GroupMap, readStagedGroups } from './group-stage.js';
 import {
   type PartitionSeries,
@@ -73,6 +74,8 @@ export interface ReadPartitionOptions {
    * plan's staged table.
    */
   readonly chainGroups?: GroupMap;
+  /** Takes every sales row read (the in-process build's fingerprint of the sales). */
+  readonly salesChecksum?: SalesChecksum;
 }
 
 /**
@@ -98,7 +101,7 @@ export async function readPartition(
   lap('seriesMs');
   const base =
     plan.salesFrom !== null ? day(plan.salesFrom) : series.reduce((m, x) => Math.min(m, x.firstDay), C);
-  const inputRows = await readPartitionSales(s, store, series, base, C);
+  const inputRows = await readPartitionSales(s, store, series, base, C, opts.salesChecksum);
   lap('salesMs');
   const groupFrom = day(plan.groupFrom);
   const groups = storeGroups(series, plan.storeLevels, base, groupFrom, C) as Map<

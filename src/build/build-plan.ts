@@ -12,7 +12,7 @@ import {
   resolveFeatureSet,
 } from '../features/feature-set.js';
 import { type GroupLevel, LEVELS } from '../features/group-levels.js';
-import { type DataFingerprint, dataFingerprint, type FingerprintPart } from './fingerprint.js';
+import { type DataFingerprint, dataFingerprint, type FingerprintPart, SalesChecksum } from './fingerprint.js';
 import { stageChainGroups } from './chain-groups.js';
 import { chainLevels } from './group-stage.js';
 import { trainingOrigins } from './series-rows.js';
@@ -32,9 +32,11 @@ export interface BuildOptions {
    * data, and sums the chain-wide group totals from those reads instead of staging them in a
    * pass of their own. Called with the plan as it will be, less its data fingerprint, and
    * only when every partition's reads cover the group days and fit `IN_PROCESS_CELLS`; the
-   * plan then has no group table, and only this process can build its partitions.
+   * plan then has no group table, and only this process can build its partitions. When the
+   * reads cover every sales day (`salesFrom` null), each row read goes into `sales`, which
+   * then stands for the fingerprint's own scan of the sales.
    */
-  readonly alongside?: (draft: BuildPlan) => Promise<void>;
+  readonly alongside?: (draft: BuildPlan, sales: SalesChecksum | null) => Promise<void>;
 }
 
 /**
@@ -236,17 +238,28 @@ export async function planBuild(
       plannedAt: new Date().toISOString(),
       timings: planTimings,
     });
+    // Every series belongs to a store, so the partitions' reads from the first day are every
+    // sales row up to C a build can see (the scan also counts rows of no series: none the
+    // loader writes).
+    const checksum = inProcess && w.salesFrom === null ? new SalesChecksum() : null;
+    const reads =
+      inProcess && opts.alongside
+        ? timed('readsMs', opts.alongside(draft({ fingerprint: '', parts: {} }), checksum))
+        : Promise.resolve();
     const [fp] = await Promise.all([
       timed(
         'fingerprintMs',
-        dataFingerprint((fn) => db.session(fn), cutoff, w.priceBoundary),
+        dataFingerprint(
+          (fn) => db.session(fn),
+          cutoff,
+          w.priceBoundary,
+          checksum ? reads.then(() => checksum.part()) : undefined,
+        ),
       ),
       groupTable
         ? timed('groupsMs', stageChainGroups(db, groupTable, w.chain, w.groupFrom, cutoff, concurrency))
         : Promise.resolve(),
-      inProcess && opts.alongside
-        ? timed('readsMs', opts.alongside(draft({ fingerprint: '', parts: {} })))
-        : Promise.resolve(),
+      reads,
     ]);
     const plan = draft(fp);
     await db.transaction(async (tx) => {

@@ -10,6 +10,7 @@ import {
   type PartitionResult,
   readPartition,
 } from './build-partition.js';
+import type { SalesChecksum } from './fingerprint.js';
 import type { GroupMap } from './group-stage.js';
 import { addGroupTotals } from './partition-input.js';
 import { abortBuild, finishBuild } from './finish-build.js';
@@ -40,7 +41,7 @@ export async function buildSnapshot(
   // levels need every store before any series computes, so all inputs are held until then.
   const read = new Map<string, PartitionData>();
   const chainGroups: GroupMap = new Map();
-  const alongside = async (draft: BuildPlan) => {
+  const alongside = async (draft: BuildPlan, sales: SalesChecksum | null) => {
     const set = planFeatureSet(draft);
     const groupFrom = parseDay(draft.groupFrom)!;
     const C = parseDay(draft.cutoff)!;
@@ -48,7 +49,10 @@ export async function buildSnapshot(
       db.session(async (s) => {
         await s.exec('SET jit = off');
         try {
-          const data = await readPartition(s, draft, set, p, { chainGroups });
+          const data = await readPartition(s, draft, set, p, {
+            chainGroups,
+            ...(sales ? { salesChecksum: sales } : {}),
+          });
           addGroupTotals(chainGroups, data.series, draft.chainLevels, data.base, groupFrom, C);
           read.set(p, data);
         } finally {

@@ -37,25 +37,110 @@ function statements(cutoff: number, priceBoundary: number): Record<string, strin
 /**
  * The data fingerprint of a build: counts and checksums of the raw rows it may see (sales up
  * to the cutoff, prices up to the price boundary, the whole calendar, events, benefit days and
- * hierarchy), all set-based, on one session of `run`.
+ * hierarchy), all set-based, on one session of `run`. With `sales`, the sales part is awaited
+ * from there instead (a `SalesChecksum` over the build's own reads) while the rest is scanned.
  */
 export async function dataFingerprint(
   run: <T>(fn: (s: DbSession) => Promise<T>) => Promise<T>,
   cutoff: number,
   priceBoundary: number,
+  sales?: Promise<FingerprintPart>,
 ): Promise<DataFingerprint> {
   // One session, one statement after the other: the sales scan dominates and runs with the
   // server's parallel workers anyway, and the plan's other work needs the pool's connections.
   const parts = await run(async (s) => {
     const out: Record<string, FingerprintPart> = {};
     for (const [name, sql] of Object.entries(statements(cutoff, priceBoundary))) {
+      if (name === 'sales' && sales) continue;
       const r = (await s.query<{ n: number; h: string }>(sql)).rows[0]!;
       out[name] = { rows: Number(r.n), checksum: r.h };
     }
     return out;
   });
+  if (sales) parts.sales = await sales;
   const fingerprint = createHash('sha256').update(canonicalJson(parts)).digest('hex');
   return { fingerprint, parts };
+}
+
+const rot = (x: number, k: number) => (x << k) | (x >>> (32 - k));
+
+/**
+ * The sales part of the fingerprint summed in Node over rows as a build reads them: each row's
+ * hash is `SALES_HASH`, i.e. PostgreSQL's `hashint8extended` (src/backend/access/hash/
+ * hashfunc.c: the int8 folded to 32 bits, then `hash_uint32_extended`, Bob Jenkins' lookup3
+ * mix and final rounds, in hashfn.c), and the sum is exact (BigInt), so the part equals the
+ * SQL statement's when the reads cover every sales row up to the cutoff. Saves the build a
+ * scan of its own over the sales (9.2 s of the plan on 57M rows).
+ */
+export class SalesChecksum {
+  private rows = 0;
+  private sum = 0n;
+
+  /** Adds `n` rows: series ids, days (epoch days) and units. */
+  add(ids: Int32Array, days: Int32Array, units: Int32Array, n: number): void {
+    // Per slice the high words (signed) and low words (unsigned) are summed as doubles, exact
+    // below 2^53 for 2^20 rows, then carried into the BigInt.
+    for (let r0 = 0; r0 < n; r0 += 1 << 20) {
+      const r1 = Math.min(n, r0 + (1 << 20));
+      let hiSum = 0;
+      let loSum = 0;
+      for (let r = r0; r < r1; r++) {
+        const v = ids[r]! * 100000 + days[r]!;
+        const vhi = Math.floor(v / 4294967296);
+        const vlo = (v - vhi * 4294967296) >>> 0;
+        const k = (v >= 0 ? vlo ^ vhi : vlo ^ ~vhi) >>> 0;
+        const seed = units[r]!;
+        let a = 0x9e3779b9 + 4 + 3923095;
+        let b = a;
+        let c = a;
+        if (seed !== 0) {
+          a = (a + (seed < 0 ? 0xffffffff : 0)) | 0;
+          b = (b + (seed >>> 0)) | 0;
+          a = (a - c) | 0;
+          a ^= rot(c, 4);
+          c = (c + b) | 0;
+          b = (b - a) | 0;
+          b ^= rot(a, 6);
+          a = (a + c) | 0;
+          c = (c - b) | 0;
+          c ^= rot(b, 8);
+          b = (b + a) | 0;
+          a = (a - c) | 0;
+          a ^= rot(c, 16);
+          c = (c + b) | 0;
+          b = (b - a) | 0;
+          b ^= rot(a, 19);
+          a = (a + c) | 0;
+          c = (c - b) | 0;
+          c ^= rot(b, 4);
+          b = (b + a) | 0;
+        }
+        a = (a + k) | 0;
+        c ^= b;
+        c = (c - rot(b, 14)) | 0;
+        a ^= c;
+        a = (a - rot(c, 11)) | 0;
+        b ^= a;
+        b = (b - rot(a, 25)) | 0;
+        c ^= b;
+        c = (c - rot(b, 16)) | 0;
+        a ^= c;
+        a = (a - rot(c, 4)) | 0;
+        b ^= a;
+        b = (b - rot(a, 14)) | 0;
+        c ^= b;
+        c = (c - rot(b, 24)) | 0;
+        hiSum += b | 0;
+        loSum += c >>> 0;
+      }
+      this.sum += BigInt(hiSum) * 4294967296n + BigInt(loSum);
+    }
+    this.rows += n;
+  }
+
+  part(): FingerprintPart {
+    return { rows: this.rows, checksum: this.sum.toString() };
+  }
 }
 
 /** Where an earlier fingerprint was taken, and its parts. */

@@ -5,6 +5,7 @@ import type { CalendarEvent } from '../features/calendar.js';
 import type { GroupSeries, ItemPrices } from '../features/family.js';
 import { type GroupLevel, groupKeys, type SeriesHierarchy } from '../features/group-levels.js';
 import { priceTicks } from '../features/prices.js';
+import type { SalesChecksum } from './fingerprint.js';
 import { dayLiteral, quoteLiteral } from './sql-text.js';
 
 /** One series of a partition: its hierarchy and dense daily units from the partition's base. */
@@ -79,7 +80,7 @@ export function salesCopySql(store: string, from: number | null, cutoff: number)
 
 /**
  * Reads the store's sales for days base..cutoff with one binary COPY and fills
- * each series' dense `units` (NaN where there is no row).
+ * each series' dense `units` (NaN where there is no row); every row read goes into `checksum`.
  */
 export async function readPartitionSales(
   s: DbSession,
@@ -87,6 +88,7 @@ export async function readPartitionSales(
   series: readonly PartitionSeries[],
   base: number,
   cutoff: number,
+  checksum?: SalesChecksum,
 ): Promise<number> {
   const len = cutoff - base + 1;
   const index = new Map<number, PartitionSeries>();
@@ -110,6 +112,7 @@ export async function readPartitionSales(
       }
       if (cur) cur.units[days[r]! - base] = units[r]!;
     }
+    checksum?.add(ids, days, units, b.length);
     rows += b.length;
   }
   return rows;
