@@ -20,6 +20,7 @@ import {
   readPartitionPrices,
   readPartitionSales,
   readPartitionSeries,
+  type StorePrices,
   storeGroups,
 } from './partition-input.js';
 import { type RowLayout, seriesRows, trainingOrigins } from './series-rows.js';
@@ -76,6 +77,8 @@ export interface ReadPartitionOptions {
   readonly chainGroups?: GroupMap;
   /** Takes every sales row read (the in-process build's fingerprint of the sales). */
   readonly salesChecksum?: SalesChecksum;
+  /** The store's prices, read for every store at once (`readChainPrices`). */
+  readonly storePrices?: (store: string) => Promise<StorePrices>;
 }
 
 /**
@@ -132,7 +135,9 @@ export async function readPartition(
   let departmentOf: PartitionEnv['departmentOf'] = null;
   if (needs.some((n) => n.prices)) {
     departmentOf = await readDepartments(s);
-    const p = await readPartitionPrices(s, store, day(plan.priceBoundary), departmentOf);
+    const p = opts.storePrices
+      ? await opts.storePrices(store)
+      : await readPartitionPrices(s, store, day(plan.priceBoundary), departmentOf);
     prices = p.prices;
     deptPrices = p.deptPrices;
     deptMeans = departmentMeans(p.deptPrices);

@@ -12,7 +12,7 @@ import {
 } from './build-partition.js';
 import type { SalesChecksum } from './fingerprint.js';
 import type { GroupMap } from './group-stage.js';
-import { addGroupTotals } from './partition-input.js';
+import { addGroupTotals, readChainPrices, readDepartments, type StorePrices } from './partition-input.js';
 import { abortBuild, finishBuild } from './finish-build.js';
 import type { SnapshotInfo } from './snapshot-catalogue.js';
 
@@ -45,13 +45,41 @@ export async function buildSnapshot(
     const set = planFeatureSet(draft);
     const groupFrom = parseDay(draft.groupFrom)!;
     const C = parseDay(draft.cutoff)!;
-    await overPartitions(draft.partitions, limit, (p) =>
+    const wantsPrices = set.families.some((f) => f.family.needs(f.params, set.shape).prices);
+    // One scan of the prices for every store, by the first lane before its partitions (a
+    // lane never waits for a connection while holding one).
+    let chainPrices: Promise<Map<string, StorePrices>> | null = null;
+    let pricesDone: (v: Map<string, StorePrices>) => void = () => {};
+    let pricesFailed: (e: unknown) => void = () => {};
+    if (wantsPrices) {
+      chainPrices = new Promise((resolve, reject) => {
+        pricesDone = resolve;
+        pricesFailed = reject;
+      });
+      chainPrices.catch(() => {});
+    }
+    const storePrices = async (store: string) =>
+      (await chainPrices!).get(store) ?? { prices: new Map(), deptPrices: new Map() };
+    const first = chainPrices
+      ? () =>
+          db
+            .session(async (s) => {
+              const departmentOf = await readDepartments(s);
+              return readChainPrices(s, parseDay(draft.priceBoundary)!, departmentOf);
+            })
+            .then(pricesDone, (e) => {
+              pricesFailed(e);
+              throw e;
+            })
+      : null;
+    await overPartitions(draft.partitions, limit, first, (p) =>
       db.session(async (s) => {
         await s.exec('SET jit = off');
         try {
           const data = await readPartition(s, draft, set, p, {
             chainGroups,
             ...(sales ? { salesChecksum: sales } : {}),
+            ...(chainPrices ? { storePrices } : {}),
           });
           addGroupTotals(chainGroups, data.series, draft.chainLevels, data.base, groupFrom, C);
           read.set(p, data);
@@ -104,15 +132,17 @@ export async function buildSnapshot(
   }
 }
 
-/** Runs `fn` over the partitions, `limit` at a time. */
+/** Runs `fn` over the partitions, `limit` at a time; the first lane runs `first` before. */
 async function overPartitions(
   parts: readonly string[],
   limit: number,
+  first: (() => Promise<void>) | null,
   fn: (p: string) => Promise<void>,
 ): Promise<void> {
   const queue = [...parts];
   await Promise.all(
-    Array.from({ length: Math.max(1, Math.min(limit, parts.length)) }, async () => {
+    Array.from({ length: Math.max(1, Math.min(limit, parts.length)) }, async (_, lane) => {
+      if (lane === 0 && first) await first();
       for (let p = queue.shift(); p !== undefined; p = queue.shift()) await fn(p);
     }),
   );

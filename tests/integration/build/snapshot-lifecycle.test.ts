@@ -145,6 +145,26 @@ describe('snapshot lifecycle', () => {
     await expect(buildPartition(db, config, plan, 'nowhere')).rejects.toBeInstanceOf(UsageError);
   });
 
+  test('a plan whose chain totals stay in the planning process is refused by any other partition run', async () => {
+    const { db, config } = t();
+    let draftPartitions: readonly string[] = [];
+    const plan = await planBuild(
+      db,
+      config,
+      { set: 'life', cutoff: '2023-05-20' },
+      {
+        alongside: async (draft) => {
+          draftPartitions = draft.partitions;
+        },
+      },
+    );
+    expect(draftPartitions).toEqual(['st1', 'st2']);
+    expect(plan.groupTable).toBeNull();
+    expect(plan.chainLevels).toEqual(['item', 'region', 'department']);
+    await expect(buildPartition(db, config, plan, 'st1')).rejects.toMatchObject({ code: 'PLAN_IN_PROCESS' });
+    await abortBuild(db, plan);
+  });
+
   test('bad requests fail clearly and leave the stored snapshot untouched', async () => {
     const { db, config } = t();
     const live = (await getSnapshot(db, 'life', CUTOFF))!;
