@@ -46,32 +46,20 @@ export async function buildSnapshot(
     const groupFrom = parseDay(draft.groupFrom)!;
     const C = parseDay(draft.cutoff)!;
     const wantsPrices = set.families.some((f) => f.family.needs(f.params, set.shape).prices);
-    // One scan of the prices for every store, by the first lane before its partitions (a
-    // lane never waits for a connection while holding one).
+    // One scan of the prices for every store, started by the first lane before its partitions
+    // (so no lane waits for it while holding the connection it would need); the others take
+    // their store's share when their reads reach the prices.
     let chainPrices: Promise<Map<string, StorePrices>> | null = null;
-    let pricesDone: (v: Map<string, StorePrices>) => void = () => {};
-    let pricesFailed: (e: unknown) => void = () => {};
-    if (wantsPrices) {
-      chainPrices = new Promise((resolve, reject) => {
-        pricesDone = resolve;
-        pricesFailed = reject;
-      });
-      chainPrices.catch(() => {});
-    }
+    const first = wantsPrices
+      ? async () => {
+          chainPrices = db.session(async (s) =>
+            readChainPrices(s, parseDay(draft.priceBoundary)!, await readDepartments(s)),
+          );
+          await chainPrices;
+        }
+      : null;
     const storePrices = async (store: string) =>
       (await chainPrices!).get(store) ?? { prices: new Map(), deptPrices: new Map() };
-    const first = chainPrices
-      ? () =>
-          db
-            .session(async (s) => {
-              const departmentOf = await readDepartments(s);
-              return readChainPrices(s, parseDay(draft.priceBoundary)!, departmentOf);
-            })
-            .then(pricesDone, (e) => {
-              pricesFailed(e);
-              throw e;
-            })
-      : null;
     await overPartitions(draft.partitions, limit, first, (p) =>
       db.session(async (s) => {
         await s.exec('SET jit = off');
@@ -79,7 +67,7 @@ export async function buildSnapshot(
           const data = await readPartition(s, draft, set, p, {
             chainGroups,
             ...(sales ? { salesChecksum: sales } : {}),
-            ...(chainPrices ? { storePrices } : {}),
+            ...(wantsPrices ? { storePrices } : {}),
           });
           addGroupTotals(chainGroups, data.series, draft.chainLevels, data.base, groupFrom, C);
           read.set(p, data);
