@@ -70,6 +70,22 @@ async function generate(db: Db, s: Shape): Promise<void> {
     ANALYZE;`);
 }
 
+/** Removes every key the runs published under the bench's prefix (the current versions stay otherwise). */
+async function dropPublished(url: string): Promise<void> {
+  const { Redis } = await import('ioredis');
+  const redis = new Redis(url);
+  try {
+    let cursor = '0';
+    do {
+      const [next, keys] = await redis.scan(cursor, 'MATCH', `${SCHEMA}*`, 'COUNT', 2000);
+      cursor = next;
+      if (keys.length) await redis.unlink(...keys);
+    } while (cursor !== '0');
+  } finally {
+    redis.disconnect();
+  }
+}
+
 interface Timed {
   readonly seconds: number;
   readonly code: number | null;
@@ -267,7 +283,10 @@ export async function main(argv: string[]): Promise<void> {
     mkdirSync('bench-output', { recursive: true });
     await writeFile('bench-output/run-pipeline.json', `${JSON.stringify(figures, null, 2)}\n`);
   } finally {
-    if (!values.keep) await db.exec(`DROP SCHEMA IF EXISTS ${SCHEMA} CASCADE`).catch(() => {});
+    if (!values.keep) {
+      await db.exec(`DROP SCHEMA IF EXISTS ${SCHEMA} CASCADE`).catch(() => {});
+      if (env.REDIS_URL) await dropPublished(env.REDIS_URL).catch(() => {});
+    }
     await db.close();
   }
 }
