@@ -24,6 +24,8 @@ export const serveSectionSchema = z
     redisTimeoutMs: z.number().int().min(10).max(60_000).default(250),
     /** How long a reader trusts the pointer it last read (0: read it on every request). */
     pointerCacheMs: z.number().int().min(0).max(60_000).default(1000),
+    /** Megabytes of the current versions' packed matrices a reader keeps in process (0: none). */
+    nearCacheMb: z.number().int().min(0).max(1_000_000).default(256),
   })
   .strict()
   .default({
@@ -35,6 +37,7 @@ export const serveSectionSchema = z
     pendingSeconds: 3600,
     redisTimeoutMs: 250,
     pointerCacheMs: 1000,
+    nearCacheMb: 256,
   });
 
 /** The job runner's section (watched folder, steps, schedules, workers): src/jobs/pipeline-config.ts. */

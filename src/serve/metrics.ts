@@ -34,6 +34,11 @@ export function createMetrics(): ServeMetrics {
     help: 'series read from the cache',
     registers: [registry],
   });
+  const nearHits = new Counter({
+    name: 'larder_near_cache_hits_total',
+    help: 'series of larder_cache_hits_total answered from the in-process copies of the current version',
+    registers: [registry],
+  });
   const misses = new Counter({
     name: 'larder_cache_misses_total',
     help: 'series looked up in the cache and not found there',
@@ -59,6 +64,7 @@ export function createMetrics(): ServeMetrics {
     errors,
     readerEvents: {
       hit: (n) => hits.inc(n),
+      nearHit: (n) => nearHits.inc(n),
       miss: (n) => misses.inc(n),
       fallback: (reason: FallbackReason, n) => fallbacks.inc({ reason }, n),
     },

@@ -34,7 +34,10 @@ export type FallbackReason = 'miss' | 'unavailable' | 'unpublished';
 
 /** Hooks for metrics; every one optional. */
 export interface ReaderEvents {
+  /** Series read from the cache (the reader's in-process copies included). */
   hit?(n: number): void;
+  /** The part of `hit` answered by the reader's in-process copies, without asking the cache. */
+  nearHit?(n: number): void;
   miss?(n: number): void;
   fallback?(reason: FallbackReason, n: number): void;
 }

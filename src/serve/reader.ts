@@ -9,6 +9,7 @@ import { KeyLayout, unpackInto } from '../publish/layout.js';
 import { openCache } from '../publish/open-cache.js';
 import { NotFoundError } from '../publish/snapshot-catalogue.js';
 import { FallbackReader, type FallbackTarget } from './fallback-reader.js';
+import { NearCache } from './near-cache.js';
 import { type ReadAllOptions, readAllSeries } from './read-all.js';
 import {
   BadRequestError,
@@ -40,6 +41,11 @@ export interface ReaderOptions {
   readonly cluster?: boolean;
   /** How long the pointer read last is trusted (default `serve.pointerCacheMs`). */
   readonly pointerCacheMs?: number;
+  /**
+   * Bytes of packed matrices of the current versions kept in process (default
+   * `serve.nearCacheMb`; 0: none). Not used over the in-process cache, which is already local.
+   */
+  readonly nearCacheBytes?: number;
   readonly events?: ReaderEvents;
 }
 
@@ -138,6 +144,8 @@ export async function createReader(opts: ReaderOptions = {}): Promise<Reader> {
   const fallback = new FallbackReader(db);
   const resolve = createViewResolver(cache, layout, opts.pointerCacheMs ?? config.serve.pointerCacheMs);
   const events = opts.events ?? {};
+  const nearBytes = opts.nearCacheBytes ?? config.serve.nearCacheMb * 2 ** 20;
+  const near = cache.kind !== 'memory' && nearBytes > 0 ? new NearCache(nearBytes) : null;
 
   async function lookup(set: string, idx: number[], parsed: readonly Parsed[], at: (i: number) => string) {
     let view: VersionView | null = null;
@@ -154,22 +162,42 @@ export async function createReader(opts: ReaderOptions = {}): Promise<Reader> {
     if (!view) return { view, hits, pending: idx, reason } satisfies CacheLookup;
     const v = view;
     for (const i of idx) checkDay(set, v.version, v.firstDay, v.manifest.horizon, parsed[i]!, at(i));
-    let bufs: (Buffer | null)[];
-    try {
-      bufs = await cache.getBuffers(
-        idx.map((i) => layout.series(set, v.version, parsed[i]!.store, parsed[i]!.item)),
-      );
-    } catch (err) {
-      if (!isCacheFailure(err)) throw err;
-      return { view, hits, pending: idx, reason: 'unavailable' } satisfies CacheLookup;
+    const keys = idx.map((i) => layout.series(set, v.version, parsed[i]!.store, parsed[i]!.item));
+    // Copies held in process, for the version just resolved only (a switch drops the set's copies).
+    let ask = idx;
+    let askKeys = keys;
+    if (near) {
+      ask = [];
+      askKeys = [];
+      idx.forEach((i, j) => {
+        const b = near.get(set, v.version, keys[j]!);
+        if (b) hits.set(i, b);
+        else {
+          ask.push(i);
+          askKeys.push(keys[j]!);
+        }
+      });
+      if (hits.size) events.nearHit?.(hits.size);
     }
     const pending: number[] = [];
-    idx.forEach((i, j) => {
-      const b = bufs[j];
-      // A value of the wrong size is not this version's vector: read it from PostgreSQL instead.
-      if (b && b.byteLength === v.stride * 4) hits.set(i, b);
-      else pending.push(i);
-    });
+    if (ask.length) {
+      let bufs: (Buffer | null)[];
+      try {
+        bufs = await cache.getBuffers(askKeys);
+      } catch (err) {
+        if (!isCacheFailure(err)) throw err;
+        if (hits.size) events.hit?.(hits.size);
+        return { view, hits, pending: ask, reason: 'unavailable' } satisfies CacheLookup;
+      }
+      ask.forEach((i, j) => {
+        const b = bufs[j];
+        // A value of the wrong size is not this version's vector: read it from PostgreSQL instead.
+        if (b && b.byteLength === v.stride * 4) {
+          hits.set(i, b);
+          near?.put(set, v.version, askKeys[j]!, b);
+        } else pending.push(i);
+      });
+    }
     if (hits.size) events.hit?.(hits.size);
     if (pending.length) events.miss?.(pending.length);
     return { view, hits, pending, reason: 'miss' } satisfies CacheLookup;
