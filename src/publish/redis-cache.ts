@@ -157,18 +157,22 @@ export function createRedisCache(opts: RedisCacheOptions): FeatureCache {
     return total;
   };
   const getBuffers = (keys: readonly string[]) =>
-    guard('MGET', async () => {
-      const out = new Array<Buffer | null>(keys.length);
-      await Promise.all(
-        groups(keys).map(async (idx) => {
-          const vals = await client.mgetBuffer(idx.map((i) => keys[i]!));
-          idx.forEach((i, j) => {
-            out[i] = vals[j] ?? null;
-          });
-        }),
-      );
-      return out;
-    });
+    // One key (a single-series read, the commonest) without the grouping's arrays and promises;
+    // still MGET, which answers nil for a key of another type where GET would fail.
+    keys.length === 1
+      ? guard('MGET', async () => [(await client.mgetBuffer(keys[0]!))[0] ?? null])
+      : guard('MGET', async () => {
+          const out = new Array<Buffer | null>(keys.length);
+          await Promise.all(
+            groups(keys).map(async (idx) => {
+              const vals = await client.mgetBuffer(idx.map((i) => keys[i]!));
+              idx.forEach((i, j) => {
+                out[i] = vals[j] ?? null;
+              });
+            }),
+          );
+          return out;
+        });
   // Bulk reads of packed vectors go over a connection of their own when it can be a plain one
   // (one server, no TLS, a little-endian host), so that they neither queue in front of single
   // reads nor pay the general client's per-value costs; a Cluster reads them through ioredis.

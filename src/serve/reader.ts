@@ -247,6 +247,60 @@ export async function createReader(opts: ReaderOptions = {}): Promise<Reader> {
 
   const key = (p: Parsed) => ({ set: p.set, item: p.item, store: p.store });
 
+  /** Reads the requests `idx` of one set into `out` (null for an unknown series). */
+  async function readSet(
+    set: string,
+    idx: number[],
+    parsed: readonly Parsed[],
+    out: (FeatureRead | null)[],
+    at: (i: number) => string,
+  ): Promise<void> {
+    const found = await lookup(set, idx, parsed, at);
+    const v = found.view;
+    if (v) {
+      for (const [i, b] of found.hits) {
+        const p = parsed[i]!;
+        out[i] = {
+          set: p.set,
+          item: p.item,
+          store: p.store,
+          cutoff: v.manifest.cutoff,
+          version: v.version,
+          source: 'cache',
+          rows: decodeRows(v, b, p.day)!,
+        };
+      }
+    }
+    if (found.pending.length === 0) return;
+    const { target, rows } = await fromDatabase(set, found, parsed, at);
+    found.pending.forEach((i, j) => {
+      const r = rows[j];
+      const read = { ...key(parsed[i]!), cutoff: target.entry.cutoff, version: target.version };
+      out[i] = r ? { ...read, source: 'fallback', rows: r } : null;
+    });
+  }
+
+  function unknownSeries(missing: readonly Parsed[]): NotFoundError {
+    const p = missing[0]!;
+    const more = missing.length > 1 ? ` (and ${missing.length - 1} more)` : '';
+    return new NotFoundError(
+      'UNKNOWN_SERIES',
+      `set '${p.set}' has no series item '${p.item}' at store '${p.store}'${more}`,
+    );
+  }
+
+  const noPrefix = () => '';
+  const ONLY = [0];
+
+  /** One series: `getMany` of one request without its grouping by set. */
+  async function get(req: ReadRequest): Promise<FeatureRead> {
+    const parsed = [parseRequest(req, '')];
+    const out: (FeatureRead | null)[] = [null];
+    await readSet(parsed[0]!.set, ONLY, parsed, out, noPrefix);
+    if (!out[0]) throw unknownSeries(parsed);
+    return out[0];
+  }
+
   async function getMany(
     reqs: readonly ReadRequest[],
     o: GetManyOptions = {},
@@ -258,40 +312,10 @@ export async function createReader(opts: ReaderOptions = {}): Promise<Reader> {
     parsed.forEach((p, i) => {
       pushTo(bySet, p.set, i);
     });
-    const readSet = async (set: string, idx: number[]) => {
-      const found = await lookup(set, idx, parsed, at);
-      const v = found.view;
-      if (v) {
-        for (const [i, b] of found.hits) {
-          const rows = decodeRows(v, b, parsed[i]!.day)!;
-          out[i] = {
-            ...key(parsed[i]!),
-            cutoff: v.manifest.cutoff,
-            version: v.version,
-            source: 'cache',
-            rows,
-          };
-        }
-      }
-      if (found.pending.length === 0) return;
-      const { target, rows } = await fromDatabase(set, found, parsed, at);
-      found.pending.forEach((i, j) => {
-        const r = rows[j];
-        const read = { ...key(parsed[i]!), cutoff: target.entry.cutoff, version: target.version };
-        out[i] = r ? { ...read, source: 'fallback', rows: r } : null;
-      });
-    };
-    await Promise.all([...bySet].map(([set, idx]) => readSet(set, idx)));
+    await Promise.all([...bySet].map(([set, idx]) => readSet(set, idx, parsed, out, at)));
     if ((o.unknown ?? 'error') === 'error') {
       const missing = parsed.filter((_, i) => out[i] === null);
-      if (missing.length) {
-        const p = missing[0]!;
-        const more = missing.length > 1 ? ` (and ${missing.length - 1} more)` : '';
-        throw new NotFoundError(
-          'UNKNOWN_SERIES',
-          `set '${p.set}' has no series item '${p.item}' at store '${p.store}'${more}`,
-        );
-      }
+      if (missing.length) throw unknownSeries(missing);
     }
     return out;
   }
@@ -371,9 +395,7 @@ export async function createReader(opts: ReaderOptions = {}): Promise<Reader> {
   return {
     cache,
     db,
-    async get(req) {
-      return (await getMany([req]))[0]!;
-    },
+    get,
     getMany: getMany as Reader['getMany'],
     getVectors,
     async describe(set) {

@@ -50,14 +50,20 @@ export function viewOf(manifest: Manifest): VersionView {
   };
 }
 
+let scratch = new Float32Array(0);
+
 /** Rows of one series from its packed matrix: every day, or just `day` (an epoch day in range). */
 export function decodeRows(view: VersionView, packed: Uint8Array, day: number | null): FeatureRow[] | null {
   if (packed.byteLength !== view.stride * 4) return null;
   const F = view.names.length;
   const h0 = day === null ? 0 : day - view.firstDay;
   const h1 = day === null ? view.manifest.horizon : h0 + 1;
-  // Only the days asked for are decoded (one of 28 for a prediction request).
-  const m = new Float32Array((h1 - h0) * F);
+  // Only the days asked for are decoded (one of 28 for a prediction request), into one scratch
+  // array reused by every read: the row objects copy the numbers out before anything else runs,
+  // and a fresh typed array per read was an ArrayBuffer for the young collector to sweep.
+  const n = (h1 - h0) * F;
+  if (scratch.length < n) scratch = new Float32Array(n);
+  const m = scratch;
   unpackInto(packed.subarray(h0 * F * 4, h1 * F * 4), m, 0);
   const rows: FeatureRow[] = [];
   for (let h = h0; h < h1; h++) rows.push({ day: view.days[h]!, features: view.row(m, (h - h0) * F) });
@@ -69,7 +75,7 @@ export function decodeRows(view: VersionView, packed: Uint8Array, day: number | 
  * that version (kept for good). Returns null when the cache has no current version of the set.
  */
 export function createViewResolver(cache: FeatureCache, layout: KeyLayout, pointerMs: number) {
-  const pointers = new Map<string, { at: number; version: number | null }>();
+  const pointers = new Map<string, { at: number; version: number | null; view?: VersionView }>();
   const views = new Map<string, VersionView>();
   return async function resolve(set: string, fresh = false): Promise<VersionView | null> {
     let p = pointers.get(set);
@@ -79,9 +85,14 @@ export function createViewResolver(cache: FeatureCache, layout: KeyLayout, point
       pointers.set(set, p);
     }
     if (p.version === null) return null;
+    // The view found for this pointer reading, without a key string per request.
+    if (p.view) return p.view;
     const viewKey = `${set}:${p.version}`;
     const known = views.get(viewKey);
-    if (known) return known;
+    if (known) {
+      p.view = known;
+      return known;
+    }
     const mKey = layout.manifest(set, p.version);
     const text = await cache.getString(mKey);
     if (text === null) return null;
@@ -89,6 +100,7 @@ export function createViewResolver(cache: FeatureCache, layout: KeyLayout, point
     // A few versions per process are plenty: only the current one and the one before are read.
     if (views.size >= 64) views.delete(views.keys().next().value!);
     views.set(viewKey, view);
+    if (pointers.get(set) === p) p.view = view;
     return view;
   };
 }
