@@ -131,8 +131,41 @@ describe('larder serve', () => {
     );
     expect(res.status).toBe(200);
     expect(((await res.json()) as { source: string }).source).toBe('cache');
+    // The server process runs with the launcher's young generation: two 32 MB semi-spaces
+    // (V8 reports the new space's size through the heap-space statistics prom-client exports).
+    const metrics = await (
+      await fetch(`http://127.0.0.1:${port}/metrics`, { headers: { authorization: `Bearer ${TOKEN}` } })
+    ).text();
+    expect(metrics).toMatch(/^larder_nodejs_heap_space_size_total_bytes\{space="new"\} 67108864$/m);
     const exited = new Promise<number | null>((r) => child!.once('exit', (code) => r(code)));
     child.kill('SIGTERM');
     expect(await exited).toBe(0);
+  });
+
+  it('stops when its launcher is killed without passing a signal on', async () => {
+    const port = await freePort();
+    const launcher = spawn(process.execPath, [bin, '-c', cfg, 'serve', '--port', String(port)], {
+      env: { ...env, LARDER_TOKENS: TOKEN },
+      stdio: ['ignore', 'pipe', 'pipe'],
+    });
+    child = launcher;
+    let out = '';
+    launcher.stdout!.on('data', (d: Buffer) => {
+      out += d.toString();
+    });
+    const end = Date.now() + 30_000;
+    while (!out.includes('serving on') && Date.now() < end && launcher.exitCode === null) await sleep(50);
+    expect(out).toContain('serving on');
+    const health = `http://127.0.0.1:${port}/health`;
+    expect((await fetch(health)).status).toBe(200);
+    launcher.kill('SIGKILL');
+    let up = true;
+    for (const stop = Date.now() + 10_000; up && Date.now() < stop; await sleep(100)) {
+      up = await fetch(health).then(
+        () => true,
+        () => false,
+      );
+    }
+    expect(up, 'the server still answers after its launcher died').toBe(false);
   });
 });

@@ -41,10 +41,18 @@ export function register(program: Command, ctx: CliContext): void {
       ctx.out(
         `serving on http://${host}:${port} (cache: ${reader.cache.kind}, ${reader.cacheReady() ? 'ready' : 'not reachable'})`,
       );
-      // Runs until SIGINT or SIGTERM; closing (on the way out) drains requests in flight.
+      // Runs until SIGINT or SIGTERM, or until the launcher (bin/larder.js) that started this
+      // process is gone; closing (on the way out) drains requests in flight. The listeners stay:
+      // a Ctrl-C reaches both the launcher and this process, and the launcher passes it on, so a
+      // second signal arrives while closing.
       await new Promise<void>((resolve) => {
-        process.once('SIGINT', resolve);
-        process.once('SIGTERM', resolve);
+        process.on('SIGINT', resolve);
+        process.on('SIGTERM', resolve);
+        process.on('SIGHUP', resolve);
+        if (process.channel) {
+          process.once('disconnect', resolve);
+          process.channel.unref();
+        }
       });
     });
 }
