@@ -183,8 +183,7 @@ export function buildServer(opts: ServerOptions): FastifyInstance {
     const { set } = setParamsSchema.parse(req.params);
     return reader.describe(set);
   });
-  // Reads are written with the compiled JSON writer: serialising 28 x 40 numbers is most of a
-  // read's cost, and JSON.stringify took three times as long.
+  // Printing the numbers is most of a full-horizon read's cost (featureReadJson).
   app.get('/v1/sets/:set/features', async (req, reply) => {
     const set = (req.params as { set?: unknown }).set;
     const q = wellFormedQuery(req.query);

@@ -1,48 +1,21 @@
-import type { FeatureRead, FeatureRow } from './read-types.js';
-
-type RowWriter = (features: Record<string, number | null>) => string;
-
-const NAME_RE = /^[a-z][a-z0-9_]{0,62}$/;
-const writers = new Map<string, RowWriter>();
-
-/** A finite number as JSON prints it; null, NaN and the infinities as null (JSON has no others). */
-const num = (v: number | null) => (v !== null && Number.isFinite(v) ? String(v) : 'null');
+import type { FeatureRead } from './read-types.js';
 
 /**
- * A compiled writer for one column list: string pieces with the quoted names precomputed. Measured
- * here at about a third of JSON.stringify's time for a 28 x 40 read (the largest cost of an HTTP
- * read); names are checked against the identifier pattern, so no text from a manifest runs as code.
+ * The JSON of a read: its fields in the documented order, whatever order the object was built in.
+ * Plain `JSON.stringify` (NaN and the infinities print as null, numbers as JavaScript prints
+ * them): V8 serialises the fixed-shape row objects the reader builds without a string per number.
+ * Measured on Node 20 (a loaded 2-core machine) against a writer compiled per column list that
+ * concatenated `String(value)`s: one day of 40 features 9-20 us against 24-44, all 28 days
+ * 460-475 us against 990-1,170.
  */
-function writerFor(names: readonly string[]): RowWriter {
-  const key = names.join(',');
-  let w = writers.get(key);
-  if (w) return w;
-  if (!names.every((n) => NAME_RE.test(n))) {
-    w = (features) => JSON.stringify(features);
-  } else {
-    const body = names.map((n, i) => `'${i ? ',' : '{'}"${n}":' + num(o.${n})`).join(' + ');
-    w = new Function('num', `return function (o) { return ${body || "'{'"} + '}'; };`)(num) as RowWriter;
-  }
-  if (writers.size >= 64) writers.delete(writers.keys().next().value!);
-  writers.set(key, w);
-  return w;
-}
-
-function rowsJson(rows: readonly FeatureRow[]): string {
-  if (rows.length === 0) return '[]';
-  const write = writerFor(Object.keys(rows[0]!.features));
-  let s = '[';
-  rows.forEach((r, i) => {
-    s += `${i ? ',' : ''}{"day":${JSON.stringify(r.day)},"features":${write(r.features)}}`;
-  });
-  return `${s}]`;
-}
-
-/** The JSON of a read, equal to `JSON.stringify(read)` (same keys, order and numbers). */
 export function featureReadJson(r: FeatureRead): string {
-  return (
-    `{"set":${JSON.stringify(r.set)},"item":${JSON.stringify(r.item)},"store":${JSON.stringify(r.store)},` +
-    `"cutoff":${JSON.stringify(r.cutoff)},"version":${num(r.version)},"source":${JSON.stringify(r.source)},` +
-    `"rows":${rowsJson(r.rows)}}`
-  );
+  return JSON.stringify({
+    set: r.set,
+    item: r.item,
+    store: r.store,
+    cutoff: r.cutoff,
+    version: r.version,
+    source: r.source,
+    rows: r.rows,
+  });
 }
