@@ -5,18 +5,24 @@ const bytes = (...v: number[]) => Uint8Array.from(v);
 
 describe('NearCache', () => {
   it('answers only for the version it holds; asking with another drops every copy of the set', () => {
-    const c = new NearCache(1024);
+    const c = new NearCache(16 << 20);
     c.put('daily', 3, 'k1', bytes(1, 2, 3, 4));
     c.put('daily', 3, 'k2', bytes(5, 6, 7, 8));
     c.put('weekly', 9, 'k1', bytes(9, 9, 9, 9));
     expect([...c.get('daily', 3, 'k1')!]).toEqual([1, 2, 3, 4]);
-    expect(c.size).toBe(12);
+    expect([...c.get('daily', 3, 'k2')!]).toEqual([5, 6, 7, 8]);
+    // One block of 4 MB per set so far.
+    expect(c.size).toBe(8 << 20);
     // The pointer moved to version 4: nothing of version 3 is served any more, even when asked again.
     expect(c.get('daily', 4, 'k1')).toBeUndefined();
     expect(c.get('daily', 3, 'k2')).toBeUndefined();
-    expect(c.size).toBe(4);
+    expect(c.size).toBe(4 << 20);
     // Other sets keep theirs.
     expect([...c.get('weekly', 9, 'k1')!]).toEqual([9, 9, 9, 9]);
+    // Putting a copy of a newer version also drops the older ones.
+    c.put('weekly', 10, 'k2', bytes(1, 1, 1, 1));
+    expect(c.get('weekly', 10, 'k1')).toBeUndefined();
+    expect([...c.get('weekly', 10, 'k2')!]).toEqual([1, 1, 1, 1]);
   });
 
   it('holds copies, not views on the buffer it was given', () => {
@@ -29,32 +35,38 @@ describe('NearCache', () => {
     expect(got.buffer).not.toBe(socketRead.buffer);
   });
 
-  it('stays within its byte budget, dropping the oldest copies first', () => {
+  it('stays within its byte budget, giving up the oldest block first', () => {
+    // 12 bytes: one block of three 4-byte copies.
     const c = new NearCache(12);
-    c.put('daily', 1, 'a', bytes(1, 1, 1, 1));
+    for (const [k, v] of [
+      ['a', 1],
+      ['b', 2],
+      ['c', 3],
+    ] as const)
+      c.put('daily', 1, k, bytes(v, v, v, v));
+    expect(c.size).toBe(12);
+    expect([...c.get('daily', 1, 'c')!]).toEqual([3, 3, 3, 3]);
+    c.put('daily', 1, 'd', bytes(4, 4, 4, 4));
+    expect(c.size).toBe(12);
+    expect(['a', 'b', 'c'].map((k) => c.get('daily', 1, k))).toEqual([undefined, undefined, undefined]);
+    expect([...c.get('daily', 1, 'd')!]).toEqual([4, 4, 4, 4]);
+    // Another set's first copy needs a block: the daily one goes.
     c.put('weekly', 1, 'x', bytes(7, 7, 7, 7));
-    c.put('daily', 1, 'b', bytes(2, 2, 2, 2));
-    c.put('daily', 1, 'c', bytes(3, 3, 3, 3));
     expect(c.size).toBe(12);
-    expect(c.get('daily', 1, 'a')).toBeUndefined();
-    expect(c.get('weekly', 1, 'x')).toBeDefined();
-    expect(c.get('daily', 1, 'c')).toBeDefined();
-    // When the set being filled has nothing left to give, other sets' copies go.
-    c.put('monthly', 1, 'm', bytes(1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 12));
-    expect(c.size).toBe(12);
-    expect(c.get('weekly', 1, 'x')).toBeUndefined();
-    expect(c.get('daily', 1, 'b')).toBeUndefined();
+    expect(c.get('daily', 1, 'd')).toBeUndefined();
+    expect([...c.get('weekly', 1, 'x')!]).toEqual([7, 7, 7, 7]);
     // A value over the whole budget is not kept.
-    c.put('daily', 1, 'big', new Uint8Array(13));
-    expect(c.get('daily', 1, 'big')).toBeUndefined();
+    c.put('monthly', 1, 'big', new Uint8Array(13));
+    expect(c.get('monthly', 1, 'big')).toBeUndefined();
     expect(c.size).toBe(12);
   });
 
-  it('replaces a key put twice without counting it twice', () => {
+  it('keeps the first copy of a key put twice (copies of one version are equal)', () => {
     const c = new NearCache(100);
     c.put('daily', 1, 'a', bytes(1, 1, 1, 1));
-    c.put('daily', 1, 'a', bytes(2, 2, 2, 2, 2, 2));
-    expect(c.size).toBe(6);
-    expect([...c.get('daily', 1, 'a')!]).toEqual([2, 2, 2, 2, 2, 2]);
+    c.put('daily', 1, 'a', bytes(2, 2, 2, 2));
+    expect([...c.get('daily', 1, 'a')!]).toEqual([1, 1, 1, 1]);
+    c.put('daily', 1, 'b', bytes(3, 3, 3, 3));
+    expect([...c.get('daily', 1, 'b')!]).toEqual([3, 3, 3, 3]);
   });
 });
