@@ -6,10 +6,11 @@ import { constants } from 'node:os';
 /**
  * `larder serve` runs with a young generation of 32 MB semi-spaces instead of V8's 16 MB (whose
  * size it only reaches after growing from 1 MB): a one-day read leaves about 25 kB of garbage, so
- * at 2,000 reads a second the default collected every half second or so, and every collection
- * stalled the reads in flight. Measured on the serve bench: 39 young collections in 20 s instead
- * of 88, and 242 ms of pauses instead of 429. V8 takes these sizes only when the process starts,
- * so the launcher starts the server in a child with them (unless the caller set them itself).
+ * at 2,000 reads a second the default collected about four times a second, and every collection
+ * stalled the reads in flight. Measured under the serve bench's one-day load: 39 young collections
+ * in 20 s instead of 88, and 242 ms of pauses instead of 429. V8 takes these sizes only when the
+ * process starts, so the launcher starts the server in a child with them (unless the caller set
+ * them itself).
  */
 const SERVE_FLAGS = ['--max-semi-space-size=32', '--min-semi-space-size=32'];
 
