@@ -120,7 +120,8 @@ export async function main(argv: string[]): Promise<void> {
     );
 
     // (c) memory per series
-    const reader = await createReader({ config, cache, db });
+    // Without in-process copies: (a) measures reads from Redis, against redis-benchmark.
+    const reader = await createReader({ config, cache, db, nearCacheBytes: 0 });
     const info = await reader.describe(set);
     const payload = info.horizon * info.columns.length * 4;
     const layout = new KeyLayout(PREFIX);
