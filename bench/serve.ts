@@ -256,6 +256,12 @@ export async function main(argv: string[]): Promise<void> {
       const text = await (await fetch(`${base}/metrics`, { headers: auth })).text();
       return Number(/^larder_process_cpu_seconds_total (\S+)$/m.exec(text)?.[1]);
     };
+    /** Series answered by the server's in-process copies, and by the cache in all. */
+    const hitCounts = async () => {
+      const text = await (await fetch(`${base}/metrics`, { headers: auth })).text();
+      const n = (name: string) => Number(new RegExp(`^${name} (\\S+)$`, 'm').exec(text)?.[1] ?? 0);
+      return { near: n('larder_near_cache_hits_total'), all: n('larder_cache_hits_total') };
+    };
     const histogram = async () => {
       const text = await (await fetch(`${base}/metrics`, { headers: auth })).text();
       return [
@@ -271,6 +277,7 @@ export async function main(argv: string[]): Promise<void> {
       const pathsFile = join(tmp, 'paths.txt');
       writeFileSync(pathsFile, paths.join('\n'));
       const before = await histogram();
+      const hits0 = await hitCounts();
       const cpu0 = await cpuSeconds();
       const args = [
         '--import',
@@ -296,6 +303,8 @@ export async function main(argv: string[]): Promise<void> {
       >;
       const after = await histogram();
       const cpuPerRequest = ((await cpuSeconds()) - cpu0) / Math.max(1, Number(load.requests));
+      const hits1 = await hitCounts();
+      const nearShare = ((hits1.near - hits0.near) / Math.max(1, hits1.all - hits0.all)) * 100;
       const counts = after.map(([le, c], k) => [le, c - (before[k]?.[1] ?? 0)] as const);
       const total = counts.at(-1)?.[1] ?? 0;
       const upTo = (q: number) => (counts.find(([, c]) => c >= q * total)?.[0] ?? Number.NaN) * 1000;
@@ -312,7 +321,8 @@ export async function main(argv: string[]): Promise<void> {
         `    server-side: p50 <= ${upTo(0.5)} ms, p99 <= ${upTo(0.99)} ms; ${within(0.001).toFixed(1)}% within 1 ms, ` +
           `${within(0.002).toFixed(1)}% within 2 ms; server CPU ${(cpuPerRequest * 1e6).toFixed(0)} us a request ` +
           `(${(cpuPerRequest * rate * 100).toFixed(0)}% of a core at ${rate} req/s); load generator CPU ` +
-          `${f(load.cpuUsPerRequest)} us a request`,
+          `${f(load.cpuUsPerRequest)} us a request; ${nearShare.toFixed(0)}% of cache hits from the server's ` +
+          'in-process copies',
       );
     };
     // A prediction request asks for one series on one day (40 features); a full-horizon read
