@@ -68,6 +68,10 @@ export class NearCache {
   put(set: string, version: number, key: string, packed: Uint8Array): void {
     const n = packed.byteLength;
     let s = this.sets.get(set);
+    // A read that resolved the version before a switch finishing after reads of the new one have
+    // begun: its copy is not wanted (a reader asking for an older version drops the newer copies
+    // in `get` first, so a pointer moved back is followed too).
+    if (s && version < s.version) return;
     if (s && (s.version !== version || s.size !== n)) {
       this.drop(s);
       s = undefined;

@@ -69,4 +69,18 @@ describe('NearCache', () => {
     c.put('daily', 1, 'b', bytes(3, 3, 3, 3));
     expect([...c.get('daily', 1, 'b')!]).toEqual([3, 3, 3, 3]);
   });
+
+  it('ignores a late copy of an older version, and follows a pointer moved back', () => {
+    const c = new NearCache(100);
+    c.put('daily', 5, 'a', bytes(5, 5, 5, 5));
+    // A read of version 4 that started before the switch finishes now.
+    c.put('daily', 4, 'b', bytes(4, 4, 4, 4));
+    expect([...c.get('daily', 5, 'a')!]).toEqual([5, 5, 5, 5]);
+    expect(c.get('daily', 5, 'b')).toBeUndefined();
+    // The pointer names version 4 again: the reader asks for it, version 5's copies go.
+    expect(c.get('daily', 4, 'b')).toBeUndefined();
+    c.put('daily', 4, 'b', bytes(4, 4, 4, 4));
+    expect([...c.get('daily', 4, 'b')!]).toEqual([4, 4, 4, 4]);
+    expect(c.get('daily', 4, 'a')).toBeUndefined();
+  });
 });
