@@ -26,6 +26,11 @@ export const serveSectionSchema = z
     pointerCacheMs: z.number().int().min(0).max(60_000).default(1000),
     /** Megabytes of the current versions' packed matrices a reader keeps in process (0: none). */
     nearCacheMb: z.number().int().min(0).max(1_000_000).default(256),
+    /**
+     * Load every series of a set's current version into those copies in the background, when a
+     * read first meets the version (at start and after each switch), if they fit.
+     */
+    nearCacheWarm: z.boolean().default(true),
   })
   .strict()
   .default({
@@ -38,6 +43,7 @@ export const serveSectionSchema = z
     redisTimeoutMs: 250,
     pointerCacheMs: 1000,
     nearCacheMb: 256,
+    nearCacheWarm: true,
   });
 
 /** The job runner's section (watched folder, steps, schedules, workers): src/jobs/pipeline-config.ts. */

@@ -1,3 +1,4 @@
+import { endianness } from 'node:os';
 import { type Config, parseConfig } from '../config/config.js';
 import { readEnv } from '../config/env.js';
 import { formatDay, parseDay } from '../core/days.js';
@@ -46,6 +47,8 @@ export interface ReaderOptions {
    * `serve.nearCacheMb`; 0: none). Not used over the in-process cache, which is already local.
    */
   readonly nearCacheBytes?: number;
+  /** Load a whole current version into the copies in the background (default `serve.nearCacheWarm`). */
+  readonly warmNearCache?: boolean;
   readonly events?: ReaderEvents;
 }
 
@@ -146,6 +149,45 @@ export async function createReader(opts: ReaderOptions = {}): Promise<Reader> {
   const events = opts.events ?? {};
   const nearBytes = opts.nearCacheBytes ?? config.serve.nearCacheMb * 2 ** 20;
   const near = cache.kind !== 'memory' && nearBytes > 0 ? new NearCache(nearBytes) : null;
+  // The bulk read gives host-order floats; the copies hold the cache's little-endian bytes.
+  const warmNear =
+    near !== null && endianness() === 'LE' && (opts.warmNearCache ?? config.serve.nearCacheWarm);
+  // The version of each set whose copies are being (or have been) loaded in the background.
+  const warming = new Map<string, number>();
+  let closed = false;
+
+  /**
+   * Copies every series of `view` into the near cache from the cache's own bulk read, in small
+   * batches with a turn of the event loop between them (reads go on meanwhile). Stops when a
+   * newer version of the set starts loading or the reader closes; a failure only ends it (reads
+   * then fill the copies one by one, as without warming).
+   */
+  function warm(set: string, view: VersionView): void {
+    if (!warmNear || warming.get(set) === view.version) return;
+    const series = view.manifest.stores.reduce((a, st) => a + st.series, 0);
+    if (series * view.stride * 4 > near!.maxBytes) return; // it would only push copies out
+    const version = view.version;
+    warming.set(set, version);
+    const bytes = view.stride * 4;
+    void (async () => {
+      try {
+        for await (const b of readAllSeries(cache, layout, resolve, { set, batchSize: 100, inflight: 1 })) {
+          if (closed || warming.get(set) !== version || b.version !== version) return;
+          const buf = new Uint8Array(b.values.buffer, b.values.byteOffset, b.values.byteLength);
+          for (let i = 0; i < b.items.length; i++)
+            near!.put(
+              set,
+              version,
+              layout.series(set, version, b.stores[i]!, b.items[i]!),
+              buf.subarray(i * bytes, (i + 1) * bytes),
+            );
+          await new Promise<void>((res) => setImmediate(res));
+        }
+      } catch {
+        // Best effort: the reads themselves still go to the cache and fill the copies.
+      }
+    })();
+  }
 
   async function lookup(set: string, idx: number[], parsed: readonly Parsed[], at: (i: number) => string) {
     let view: VersionView | null = null;
@@ -161,6 +203,7 @@ export async function createReader(opts: ReaderOptions = {}): Promise<Reader> {
     }
     if (!view) return { view, hits, pending: idx, reason } satisfies CacheLookup;
     const v = view;
+    warm(set, v);
     for (const i of idx) checkDay(set, v.version, v.firstDay, v.manifest.horizon, parsed[i]!, at(i));
     const keys = idx.map((i) => layout.series(set, v.version, parsed[i]!.store, parsed[i]!.item));
     // Copies held in process, for the version just resolved only (a switch drops the set's copies).
@@ -440,6 +483,7 @@ export async function createReader(opts: ReaderOptions = {}): Promise<Reader> {
     readAll: (o) => readAllSeries(cache, layout, resolve, o),
     cacheReady: () => cache.ready(),
     async close() {
+      closed = true;
       if (ownCache) await cache.close();
       if (ownDb) await db.close();
     },

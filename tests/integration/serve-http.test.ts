@@ -36,7 +36,8 @@ beforeAll(async () => {
     { LARDER_TOKENS: ` ${OTHER} ,` },
   );
   await publishSnapshot(env().db, cache, config, { set: 'daily', cutoff: fx.cutoff });
-  reader = await createReader({ config, cache, db: env().db });
+  // No background loading of the copies: the 503 test below needs a series no read has copied.
+  reader = await createReader({ config, cache, db: env().db, warmNearCache: false });
   app = buildServer({ reader, config, logLevel: 'silent' });
   await app.listen({ port: 0, host: '127.0.0.1' });
   base = `http://127.0.0.1:${(app.server.address() as AddressInfo).port}`;

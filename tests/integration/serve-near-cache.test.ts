@@ -39,13 +39,15 @@ afterAll(async () => {
   await cache?.close();
 });
 
-async function open(pointerCacheMs: number, nearCacheBytes?: number) {
+/** A reader whose copies fill read by read unless `warm` (the background load of a whole version). */
+async function open(pointerCacheMs: number, nearCacheBytes?: number, warm = false) {
   const metrics = createMetrics();
   const reader = await createReader({
     config: env().config,
     cache,
     db: env().db,
     pointerCacheMs,
+    warmNearCache: warm,
     events: metrics.readerEvents,
     ...(nearCacheBytes === undefined ? {} : { nearCacheBytes }),
   });
@@ -116,6 +118,45 @@ describe('in-process copies of the current version', () => {
     expect((await count('larder_near_cache_hits_total')) - near0).toBe(reqs.length);
   });
 
+  it('are loaded whole in the background after a first read, and again after a switch', async () => {
+    const { db, config } = env();
+    const reqs = fx[0]!.series.map((s) => ({ set: 'daily', item: s.item, store: s.store }));
+    const { reader, count } = await open(0, undefined, true);
+    /**
+     * Reads series never read before, one at a time, until one comes from the copies: only the
+     * background load can have put it there. Returns the requests still unread.
+     */
+    const waitForLoad = async (unread: typeof reqs) => {
+      for (let k = 0; k < unread.length; k++) {
+        const before = await count('larder_near_cache_hits_total');
+        await reader.get(unread[k]!);
+        if ((await count('larder_near_cache_hits_total')) - before === 1) return unread.slice(k + 1);
+        await sleep(20);
+      }
+      throw new Error('no series was loaded in the background');
+    };
+    for (const [f, cutoff] of [fx[0]!, fx[1]!].map((x) => [x, x.cutoff] as const)) {
+      const pub = await publishSnapshot(db, cache, config, { set: 'daily', cutoff });
+      const first = await reader.get(reqs[0]!);
+      expect(first.version).toBe(pub.version);
+      const unread = await waitForLoad(reqs.slice(1));
+      expect(unread.length).toBeGreaterThan(10);
+      await sleep(100); // the last batches of the load
+      // Every series key of the version gone from Redis: the copies answer every unread series.
+      for (const r of reqs) await raw.del(layout.series('daily', pub.version, r.store, r.item));
+      const hits = await count('larder_near_cache_hits_total');
+      const got = await reader.getMany(unread);
+      expect((await count('larder_near_cache_hits_total')) - hits).toBe(unread.length);
+      expect(got.every((r) => r.version === pub.version && r.cutoff === cutoff && r.source === 'cache')).toBe(
+        true,
+      );
+      for (const r of got.slice(0, 8))
+        expect(r.rows[0]!.features[f.columns[0]!]).toBe(await firstCell(f, r.item, r.store));
+    }
+    // The next test reads through Redis: a current version with its keys.
+    await publishSnapshot(db, cache, config, { set: 'daily', cutoff: fx[1]!.cutoff });
+  });
+
   it('are not used when Redis is away, even with the pointer still trusted: the fallback answers', async () => {
     const own = createRedisCache({ url: await redisServerUrl(), commandTimeoutMs: 10_000 });
     await own.waitReady(5000);
@@ -125,6 +166,7 @@ describe('in-process copies of the current version', () => {
       cache: own,
       db: env().db,
       pointerCacheMs: 60_000,
+      warmNearCache: false,
       events: metrics.readerEvents,
     });
     readers.push(reader);
