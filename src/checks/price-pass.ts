@@ -68,6 +68,8 @@ export async function runPricePass(
   db: Db,
   cutoff: number | null,
   visitors: ReadonlyArray<Guarded<PriceVisitor>>,
+  /** Store (or extend) the copy of what was read for later passes (the job runner's checks). */
+  keepCopies = false,
 ): Promise<PricePassResult> {
   let plan: PriceHistoryPlan | undefined;
   let sink: PriceHistorySink | null = null;
@@ -124,7 +126,7 @@ export async function runPricePass(
         return { rows, groups: groupCount, pricedWeeks };
       }
 
-      sink = new PriceHistorySink(db, plan);
+      if (keepCopies) sink = new PriceHistorySink(db, plan);
       const groups = (
         await tx.query<{ item_id: string; store_id: string; n: number }>(pricesGroupsSql(cutoff))
       ).rows;
@@ -135,7 +137,7 @@ export async function runPricePass(
       const next = () => {
         const grp = groups[g]!;
         emit(grp.item_id, grp.store_id, weeks, prices, n);
-        sink!.add(grp.item_id, grp.store_id, weeks, prices, n);
+        (sink as PriceHistorySink | null)?.add(grp.item_id, grp.store_id, weeks, prices, n);
         g++;
         n = 0;
         const size = groups[g]?.n ?? 0;
@@ -167,7 +169,7 @@ export async function runPricePass(
   const s = sink as PriceHistorySink | null;
   const stored = s
     ? await s.finish(grew ? newest : null)
-    : grew
+    : grew && keepCopies
       ? await extendPriceHistory(db, p, newest)
       : false;
   return {

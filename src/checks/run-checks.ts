@@ -21,6 +21,13 @@ export interface RunChecksOptions {
   readonly scheduled?: boolean | undefined;
   /** The run's day (YYYY-MM-DD) for freshness and waiver expiry; today in UTC by default. */
   readonly today?: string | undefined;
+  /**
+   * Store the copies of the sales and prices read (sales-blocks.ts, price-history.ts) so that
+   * later runs read only newer days from the raw tables. Valid copies are read either way; the
+   * job runner's check step keeps them (it checks growing data night after night), an ad-hoc
+   * run does not pay for writing them unless asked.
+   */
+  readonly keepCopies?: boolean | undefined;
 }
 
 export type CheckStatus = 'passed' | 'warned' | 'blocked' | 'failed';
@@ -131,14 +138,14 @@ export async function runChecks(
   const readers = (pass: PassName) => selected.filter((c) => c.reads.includes(pass)).length;
   let pricesResult: PricePassResult | undefined;
   const pricePass = new SharedPass<PriceVisitor, PricePassResult>(readers('prices'), async (v) => {
-    pricesResult = await timed('pass:prices', () => runPricePass(db, cutoff, v));
+    pricesResult = await timed('pass:prices', () => runPricePass(db, cutoff, v, opts.keepCopies ?? false));
     return pricesResult;
   });
   let salesResult: SalesPassResult | undefined;
   // The two passes run side by side (checks that need both match them up afterwards).
   const salesPass = new SharedPass<SeriesVisitor, SalesPassResult>(readers('sales'), async (v) => {
     salesResult = await timed('pass:sales', () =>
-      runSalesPass(db, cutoff, v, (d) => retailWeekStart(d, weekStartsOn)),
+      runSalesPass(db, cutoff, v, (d) => retailWeekStart(d, weekStartsOn), opts.keepCopies ?? false),
     );
     return salesResult;
   });

@@ -118,6 +118,8 @@ export async function runSalesPass(
   cutoff: number | null,
   visitors: ReadonlyArray<Guarded<SeriesVisitor>>,
   weekStart: (day: number) => number,
+  /** Store the blocks of the days read from `sales` for later passes (the job runner's checks). */
+  keepCopies = false,
 ): Promise<SalesPassResult> {
   const totals = new DayAccumulator();
   // Each series is written straight into its dense array as its rows arrive in day order: days
@@ -136,7 +138,7 @@ export async function runSalesPass(
     plan.usable === null ? null : cutoff === null ? plan.usable : Math.min(plan.usable, cutoff);
   const writesFrom = fromBlocks === null ? null : fromBlocks + 1;
   const sink =
-    fromBlocks === null || cutoff === null || cutoff > fromBlocks
+    keepCopies && (fromBlocks === null || cutoff === null || cutoff > fromBlocks)
       ? new BlockSink(db, plan, writesFrom === null ? null : blockOf(writesFrom))
       : null;
 

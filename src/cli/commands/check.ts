@@ -13,6 +13,7 @@ interface CheckOptions {
   json: boolean;
   report?: string;
   scheduled: boolean;
+  keepCopies: boolean;
   examples: string;
 }
 
@@ -31,6 +32,11 @@ export function register(program: Command, ctx: CliContext): void {
     .option('--json', 'print one JSON object per finding on stdout (the summary goes to stderr)', false)
     .option('--report <file>', 'write a self-contained HTML report to this file')
     .option('--scheduled', 'judge as a scheduled refresh: stale data blocks', false)
+    .option(
+      '--keep-copies',
+      'store compact copies of the sales and prices read, so later runs read only newer days (larder run always does)',
+      false,
+    )
     .option('--examples <n>', 'worst findings shown per check in the summary', '3')
     .action(async (o: CheckOptions) => {
       const only =
@@ -46,7 +52,12 @@ export function register(program: Command, ctx: CliContext): void {
         throw new UsageError(`--examples: expected an integer >= 0, got '${o.examples}'`);
       const config = await ctx.config();
       const db = await ctx.db();
-      const result = await runChecks(db, config, { cutoff: o.cutoff, only, scheduled: o.scheduled });
+      const result = await runChecks(db, config, {
+        cutoff: o.cutoff,
+        only,
+        scheduled: o.scheduled,
+        keepCopies: o.keepCopies,
+      });
       const summary = formatSummary(result, { examples });
       if (o.json) {
         for (const line of findingsToJsonLines(result.findings)) ctx.out(line);

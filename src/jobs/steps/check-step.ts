@@ -17,6 +17,7 @@ export const checkStep: PipelineStep = {
     const result = await runChecks(env.db, env.config, {
       cutoff: env.cutoff,
       scheduled: env.settings.scheduled,
+      keepCopies: true,
       today: dayInZone(new Date()),
     });
     env.state.checkRunId = result.runId;

@@ -119,7 +119,7 @@ function findingsOf(r: CheckRunResult) {
 }
 
 async function check(db: Db, cutoff: string): Promise<CheckRunResult> {
-  return runChecks(db, config, { cutoff, today: cutoff });
+  return runChecks(db, config, { cutoff, today: cutoff, keepCopies: true });
 }
 
 /** The run with the blocks as they are, then a reference run after the blocks are dropped. */
@@ -215,13 +215,25 @@ describe('the sales pass reads stored blocks and the new days only', () => {
     expect(findingsOf(r)).toEqual(findingsOf(ref));
   });
 
+  test('a run not asked to keep the copies reads valid ones but writes none', async () => {
+    const { db } = t();
+    await check(db, day(8));
+    await loadDay(day(9), (_i, _s, u) => u);
+    const r = await runChecks(db, config, { cutoff: day(9), today: day(9) });
+    expect(r.salesSource).toMatchObject({ blocksTo: day(8), wroteFrom: null, wroteBlocks: 0 });
+    expect(r.pricesSource).toMatchObject({ stored: false });
+    expect(r.pricesSource?.historyTo).not.toBeNull();
+    const state = await db.query<{ d: string }>('SELECT covered_to::text AS d FROM sales_blocks_state');
+    expect(state.rows[0]!.d).toBe(day(8));
+  });
+
   test('with a pool of two the blocks are written after the pass, with the same findings', async () => {
-    await loadDay(day(9), (item, store, u) => (item === 'it006' && store === 'st01' ? 0 : u));
-    await check(t().db, day(8));
-    const { r } = await compare(small, day(9));
-    expect(r.salesSource).toMatchObject({ blocksTo: day(8), reason: null });
-    const again = await check(small, day(9));
-    expect(again.salesSource).toMatchObject({ blocksTo: day(9), rowsFromSales: 0 });
+    await loadDay(day(10), (item, store, u) => (item === 'it006' && store === 'st01' ? 0 : u));
+    await check(t().db, day(9));
+    const { r } = await compare(small, day(10));
+    expect(r.salesSource).toMatchObject({ blocksTo: day(9), reason: null });
+    const again = await check(small, day(10));
+    expect(again.salesSource).toMatchObject({ blocksTo: day(10), rowsFromSales: 0 });
     expect(findingsOf(again)).toEqual(findingsOf(r));
   });
 });
