@@ -1,5 +1,5 @@
 import { formatDay } from '../core/days.js';
-import { CopyBinaryWriter } from '../db/binary-copy.js';
+import { CopyBinaryWriter, readCopyTuples } from '../db/binary-copy.js';
 import type { Db, DbSession } from '../db/database.js';
 import { type ChangeMark, changesSince, readChangeMark } from '../jobs/change-log.js';
 import { CacheSink, type CacheState, readCacheState } from './cache-sink.js';
@@ -62,54 +62,12 @@ export async function readPriceHistory(
          FROM price_history h FULL JOIN (${newWeeksSql(usable, cutoff)}) t USING (item_id, store_id)
          ORDER BY item_id, store_id) TO STDOUT (FORMAT binary)`;
   const text = new TextDecoder();
-  let pending: Buffer = Buffer.alloc(0);
-  let header = false;
-  for await (const chunk of tx.copyTo(sql)) {
-    pending = pending.length
-      ? Buffer.concat([pending, chunk])
-      : Buffer.from(chunk.buffer, chunk.byteOffset, chunk.byteLength);
-    let p = 0;
-    if (!header) {
-      if (pending.length < 19) continue;
-      p = 19 + pending.readInt32BE(15);
-      header = true;
-    }
-    const dv = new DataView(pending.buffer, pending.byteOffset, pending.byteLength);
-    const len = pending.length;
-    for (;;) {
-      if (p + 2 > len) break;
-      const fields = dv.getInt16(p);
-      if (fields === -1) {
-        p += 2;
-        break;
-      }
-      if (fields !== 3) throw new Error('price_history: a row of an unexpected shape');
-      // The whole tuple must be buffered: three length-prefixed fields.
-      let q = p + 2;
-      const at: number[] = [];
-      let complete = true;
-      for (let f = 0; f < 3; f++) {
-        if (q + 4 > len) {
-          complete = false;
-          break;
-        }
-        const l = dv.getInt32(q);
-        if (l < 0) throw new Error('price_history: a NULL field');
-        at.push(q + 4, l);
-        q += 4 + l;
-        if (q > len) {
-          complete = false;
-          break;
-        }
-      }
-      if (!complete) break;
-      const item = text.decode(pending.subarray(at[0]!, at[0]! + at[1]!));
-      const store = text.decode(pending.subarray(at[2]!, at[2]! + at[3]!));
-      group(item, store, dv, at[4]!, at[5]! / REC);
-      p = q;
-    }
-    pending = pending.subarray(p);
-  }
+  await readCopyTuples(tx.copyTo(sql), 3, (dv, bytes, at) => {
+    if (at[1]! < 0 || at[3]! < 0 || at[5]! < 0) throw new Error('price_history: a NULL field');
+    const item = text.decode(bytes.subarray(at[0]!, at[0]! + at[1]!));
+    const store = text.decode(bytes.subarray(at[2]!, at[2]! + at[3]!));
+    group(item, store, dv, at[4]!, at[5]! / REC);
+  });
 }
 
 /** The copy a pass over `prices` writes whole (the old one is replaced). */

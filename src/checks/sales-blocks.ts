@@ -1,5 +1,5 @@
 import { formatDay } from '../core/days.js';
-import { CopyBinaryWriter, readCopyBinary } from '../db/binary-copy.js';
+import { CopyBinaryWriter, readCopyBinary, readCopyTuples } from '../db/binary-copy.js';
 import { CacheSink, type CacheState, readCacheState } from './cache-sink.js';
 import type { Db, DbSession } from '../db/database.js';
 import { type ChangeMark, changesSince, readChangeMark } from '../jobs/change-log.js';
@@ -98,39 +98,11 @@ export async function readBlocks(
   row: (seriesId: number, firstDay: number, view: DataView, offset: number) => void,
 ): Promise<number> {
   const sql = `COPY (SELECT series_id, block, units FROM sales_blocks WHERE block <= ${blockOf(upTo)} ORDER BY series_id, block) TO STDOUT (FORMAT binary)`;
-  // Each tuple: int16 field count, then int4 series_id, int4 block, bytea of BLOCK_BYTES, each
-  // behind its int32 length.
-  const TUPLE = 2 + 8 + 8 + 4 + BLOCK_BYTES;
-  let pending: Buffer = Buffer.alloc(0);
-  let header = false;
-  let blocks = 0;
-  for await (const chunk of db.copyTo(sql)) {
-    pending = pending.length
-      ? Buffer.concat([pending, chunk])
-      : Buffer.from(chunk.buffer, chunk.byteOffset, chunk.byteLength);
-    let p = 0;
-    if (!header) {
-      if (pending.length < 19) continue;
-      p = 19 + pending.readInt32BE(15);
-      header = true;
-    }
-    const dv = new DataView(pending.buffer, pending.byteOffset, pending.byteLength);
-    while (p + 2 <= pending.length) {
-      const fields = dv.getInt16(p);
-      if (fields === -1) {
-        p += 2;
-        break;
-      }
-      if (p + TUPLE > pending.length) break;
-      if (fields !== 3 || dv.getInt32(p + 2) !== 4 || dv.getInt32(p + 18) !== BLOCK_BYTES)
-        throw new Error('sales_blocks: a block row of an unexpected shape');
-      row(dv.getInt32(p + 6), dv.getInt32(p + 14) * BLOCK_DAYS, dv, p + 22);
-      blocks++;
-      p += TUPLE;
-    }
-    pending = pending.subarray(p);
-  }
-  return blocks;
+  return readCopyTuples(db.copyTo(sql), 3, (dv, _bytes, at) => {
+    if (at[1] !== 4 || at[3] !== 4 || at[5] !== BLOCK_BYTES)
+      throw new Error('sales_blocks: a block row of an unexpected shape');
+    row(dv.getInt32(at[0]!), dv.getInt32(at[2]!) * BLOCK_DAYS, dv, at[4]!);
+  });
 }
 
 /** The blocks a pass rewrites: every block of each series from `fromBlock` on. */

@@ -314,3 +314,66 @@ export async function* readCopyBinary(
       nulls: cur.nulls.map((x) => x.slice(0, n)),
     };
 }
+
+/**
+ * Calls `tuple` for every row of a binary COPY stream of `fields` columns with any types (the
+ * typed decoder above handles fixed types only): `at` holds each field's byte offset in `view`
+ * and its length (-1 for NULL) as `[offset0, length0, offset1, ...]`, valid during the call.
+ * Returns the number of rows.
+ */
+export async function readCopyTuples(
+  source: AsyncIterable<Uint8Array>,
+  fields: number,
+  tuple: (view: DataView, bytes: Buffer, at: Int32Array) => void,
+): Promise<number> {
+  let pending: Buffer = Buffer.alloc(0);
+  let header = false;
+  let rows = 0;
+  const at = new Int32Array(2 * fields);
+  for await (const chunk of source) {
+    pending = pending.length
+      ? Buffer.concat([pending, chunk])
+      : Buffer.from(chunk.buffer, chunk.byteOffset, chunk.byteLength);
+    let p = 0;
+    if (!header) {
+      if (pending.length < 19) continue;
+      if (!pending.subarray(0, 11).equals(SIGNATURE)) throw new Error('not a binary COPY stream');
+      p = 19 + pending.readInt32BE(15);
+      header = true;
+    }
+    const dv = new DataView(pending.buffer, pending.byteOffset, pending.byteLength);
+    const len = pending.length;
+    for (;;) {
+      if (p + 2 > len) break;
+      const n = dv.getInt16(p);
+      if (n === -1) {
+        p += 2;
+        break;
+      }
+      if (n !== fields) throw new Error(`binary COPY row has ${n} fields, expected ${fields}`);
+      // Only a wholly buffered tuple is handed on.
+      let q = p + 2;
+      let complete = true;
+      for (let f = 0; f < fields; f++) {
+        if (q + 4 > len) {
+          complete = false;
+          break;
+        }
+        const l = dv.getInt32(q);
+        at[2 * f] = q + 4;
+        at[2 * f + 1] = l;
+        q += 4 + Math.max(l, 0);
+        if (q > len) {
+          complete = false;
+          break;
+        }
+      }
+      if (!complete) break;
+      tuple(dv, pending, at);
+      rows++;
+      p = q;
+    }
+    pending = pending.subarray(p);
+  }
+  return rows;
+}

@@ -1,5 +1,5 @@
 import { expect, test } from 'vitest';
-import { CopyBinaryWriter, readCopyBinary } from '../../src/db/binary-copy.js';
+import { CopyBinaryWriter, readCopyBinary, readCopyTuples } from '../../src/db/binary-copy.js';
 import { parseDay } from '../../src/core/days.js';
 import { useTestDb } from '../helpers/db.js';
 
@@ -60,4 +60,44 @@ test('a COPY read abandoned early leaves the pool and the session usable', async
     for await (const _ of s.copyTo('COPY (SELECT g FROM generate_series(1, 200000) g) TO STDOUT')) break;
     expect((await s.query<{ n: number }>('SELECT 2::int AS n')).rows).toEqual([{ n: 2 }]);
   });
+});
+
+test('bytea, text and NULL fields read back by the tuple reader across chunk boundaries', async () => {
+  const { db } = t();
+  await db.exec('CREATE TABLE bt (k int4, s text, v bytea)');
+  const w = new CopyBinaryWriter(300); // small chunks: tuples are split between them
+  const n = 2000;
+  const bytesOf = (i: number) => Uint8Array.from({ length: i % 37 }, (_, j) => (i * 31 + j) & 255);
+  for (let i = 0; i < n; i++) {
+    w.row(3);
+    w.int4(i);
+    if (i % 11 === 0) w.null();
+    else w.text(`ü${i}`);
+    w.bytea(bytesOf(i));
+  }
+  const chunks = [...w.take(), ...w.end()];
+  expect(await db.copyFrom('COPY bt FROM STDIN (FORMAT binary)', chunks)).toBe(n);
+  // PostgreSQL's own reading of what was written: the outside check on the bytea framing.
+  const md5 = await db.query<{ v: string }>(`SELECT encode(v, 'hex') AS v FROM bt WHERE k = 40`);
+  expect(md5.rows[0]!.v).toBe(Buffer.from(bytesOf(40)).toString('hex'));
+  const text = new TextDecoder();
+  // The writer's own 300-byte chunks, then the server's stream of the stored rows.
+  const sources = [
+    (async function* () {
+      yield* chunks;
+    })(),
+    db.copyTo('COPY (SELECT k, s, v FROM bt ORDER BY k) TO STDOUT (FORMAT binary)'),
+  ];
+  for (const source of sources) {
+    let seen = 0;
+    const rows = await readCopyTuples(source, 3, (dv, bytes, at) => {
+      const i = seen++;
+      expect(dv.getInt32(at[0]!)).toBe(i);
+      if (i % 11 === 0) expect(at[3]).toBe(-1);
+      else expect(text.decode(bytes.subarray(at[2]!, at[2]! + at[3]!))).toBe(`ü${i}`);
+      expect(Buffer.from(bytes.subarray(at[4]!, at[4]! + at[5]!)).equals(Buffer.from(bytesOf(i)))).toBe(true);
+    });
+    expect(rows).toBe(n);
+    expect(seen).toBe(n);
+  }
 });
