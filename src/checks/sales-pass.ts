@@ -102,7 +102,7 @@ export interface SalesSource {
   readonly reason: string | null;
   readonly rowsFromBlocks: number;
   readonly rowsFromSales: number;
-  /** First block the pass rewrote (null: none written; 0 with `all`: every block). */
+  /** First day of the first block the pass rewrote ('all': every block; null: none written). */
   readonly wroteFrom: string | null;
   readonly wroteBlocks: number;
 }
@@ -110,8 +110,8 @@ export interface SalesSource {
 /**
  * Streams the sales up to the cutoff once in (series_id, day) order, assembling each series into
  * a dense array for the visitors and adding every row to the chain's daily totals. The days the
- * stored blocks hold (sales-blocks.ts) come from them, the rest from `sales` by binary COPY; the
- * pass then stores the blocks of the days it read from `sales`, for the next pass.
+ * stored blocks hold (sales-blocks.ts) come from them, the rest from `sales` by binary COPY; with
+ * `keepCopies` the pass then stores the blocks of the days it read from `sales`, for later passes.
  */
 export async function runSalesPass(
   db: Db,
