@@ -9,6 +9,18 @@ export interface CacheState {
   readonly count: number;
 }
 
+/** What a pass may take from a cache, as planned before it reads. */
+export interface CachePlan {
+  /** Days (weeks, for prices) up to here come from the cache; null: read everything from the table. */
+  readonly usable: number | null;
+  /** Why the cache is not (wholly) usable, or null. */
+  readonly reason: string | null;
+  /** The change log before the plan was made: the mark of what this pass writes. */
+  readonly mark: ChangeMark;
+  /** The state as read, so a writer can tell another pass wrote in between. */
+  readonly state: CacheState | null;
+}
+
 export interface CacheSpec {
   /** Advisory lock key of the cache (one writer at a time; another pass skips writing). */
   readonly lockKey: string;
@@ -37,6 +49,40 @@ export async function readCacheState(
   return r
     ? { coveredTo: parseDay(r.covered_to)!, last: Number(r.change_last), count: Number(r.change_count) }
     : null;
+}
+
+/**
+ * Inside a write's transaction: takes the cache's lock (without waiting) and tells whether its
+ * state is still the one the pass planned from. False: another pass holds the write or wrote since.
+ */
+export async function claimCache(
+  tx: Pick<Db, 'query'>,
+  lockKey: string,
+  table: CacheSpec['stateTable'],
+  planned: CacheState | null,
+): Promise<boolean> {
+  const got = await tx.query<{ ok: boolean }>('SELECT pg_try_advisory_xact_lock(hashtext($1)) AS ok', [
+    lockKey,
+  ]);
+  if (!got.rows[0]!.ok) return false;
+  const now = await readCacheState(tx, table);
+  if (now === null || planned === null) return now === planned;
+  return now.coveredTo === planned.coveredTo && now.last === planned.last && now.count === planned.count;
+}
+
+/** Records what a cache now covers and the change-log mark it is valid from. */
+export async function writeCacheState(
+  tx: Pick<Db, 'query'>,
+  table: CacheSpec['stateTable'],
+  coveredTo: number,
+  mark: ChangeMark,
+): Promise<void> {
+  await tx.query(
+    `INSERT INTO ${table} (covered_to, change_last, change_count) VALUES ($1, $2, $3)
+     ON CONFLICT (only_row) DO UPDATE SET covered_to = EXCLUDED.covered_to,
+       change_last = EXCLUDED.change_last, change_count = EXCLUDED.change_count, written_at = now()`,
+    [formatDay(coveredTo), mark.last, mark.count],
+  );
 }
 
 /** Async queue of chunks: the pass pushes, a COPY reads. */
@@ -116,31 +162,14 @@ export class CacheSink {
     const s = this.spec;
     try {
       return await this.db.transaction(async (tx) => {
-        const got = await tx.query<{ ok: boolean }>('SELECT pg_try_advisory_xact_lock(hashtext($1)) AS ok', [
-          s.lockKey,
-        ]);
-        const now = got.rows[0]!.ok ? await readCacheState(tx, s.stateTable) : undefined;
-        const same =
-          now !== undefined &&
-          (now === null
-            ? s.state === null
-            : s.state !== null &&
-              now.coveredTo === s.state.coveredTo &&
-              now.last === s.state.last &&
-              now.count === s.state.count);
-        if (!same) {
+        if (!(await claimCache(tx, s.lockKey, s.stateTable, s.state))) {
           for await (const _ of source); // let the pass go on pushing into nothing
           return false;
         }
         await tx.query(s.clear[0], s.clear[1]);
         const [coveredTo] = await Promise.all([this.finished, tx.copyFrom(s.copySql, source)]);
         if (coveredTo === null) throw aborted;
-        await tx.query(
-          `INSERT INTO ${s.stateTable} (covered_to, change_last, change_count) VALUES ($1, $2, $3)
-           ON CONFLICT (only_row) DO UPDATE SET covered_to = EXCLUDED.covered_to,
-             change_last = EXCLUDED.change_last, change_count = EXCLUDED.change_count, written_at = now()`,
-          [formatDay(coveredTo), s.mark.last, s.mark.count],
-        );
+        await writeCacheState(tx, s.stateTable, coveredTo, s.mark);
         return true;
       });
     } catch (err) {

@@ -1,8 +1,8 @@
 import { formatDay } from '../core/days.js';
 import { CopyBinaryWriter, readCopyTuples } from '../db/binary-copy.js';
 import type { Db, DbSession } from '../db/database.js';
-import { type ChangeMark, changesSince, readChangeMark } from '../jobs/change-log.js';
-import { CacheSink, type CacheState, readCacheState } from './cache-sink.js';
+import { changesSince, readChangeMark } from '../jobs/change-log.js';
+import { CacheSink, type CachePlan, claimCache, readCacheState, writeCacheState } from './cache-sink.js';
 
 /**
  * The checks' copy of the prices table (sql/000010.sql): per item and store, every week's
@@ -11,13 +11,8 @@ import { CacheSink, type CacheState, readCacheState } from './cache-sink.js';
  */
 const REC = 12;
 
-export interface PriceHistoryPlan {
-  /** Weeks starting up to here come from the copy; null: read everything from `prices`. */
-  readonly usable: number | null;
-  readonly reason: string | null;
-  readonly mark: ChangeMark;
-  readonly state: CacheState | null;
-}
+/** What a prices pass may take from the copy (`usable`: weeks starting up to that day). */
+export type PriceHistoryPlan = CachePlan;
 
 /** Whether the stored copy may be used: no price change on or before its covered week since its mark. */
 export async function planPriceHistory(db: DbSession): Promise<PriceHistoryPlan> {
@@ -119,20 +114,12 @@ export async function extendPriceHistory(
 ): Promise<boolean> {
   const s = plan.state!;
   return db.transaction(async (tx) => {
-    const got = await tx.query<{ ok: boolean }>('SELECT pg_try_advisory_xact_lock(hashtext($1)) AS ok', [
-      `larder.price_history:${db.schema}`,
-    ]);
-    if (!got.rows[0]!.ok) return false;
-    const now = await readCacheState(tx, 'price_history_state');
-    if (!now || now.coveredTo !== s.coveredTo || now.last !== s.last || now.count !== s.count) return false;
+    if (!(await claimCache(tx, `larder.price_history:${db.schema}`, 'price_history_state', s))) return false;
     await tx.exec(
       `INSERT INTO price_history (item_id, store_id, recs) ${newWeeksSql(s.coveredTo, coveredTo)}
        ON CONFLICT (item_id, store_id) DO UPDATE SET recs = price_history.recs || EXCLUDED.recs`,
     );
-    await tx.query(
-      `UPDATE price_history_state SET covered_to = $1, change_last = $2, change_count = $3, written_at = now()`,
-      [formatDay(coveredTo), plan.mark.last, plan.mark.count],
-    );
+    await writeCacheState(tx, 'price_history_state', coveredTo, plan.mark);
     return true;
   });
 }

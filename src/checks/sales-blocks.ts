@@ -1,8 +1,8 @@
 import { formatDay } from '../core/days.js';
 import { CopyBinaryWriter, readCopyBinary, readCopyTuples } from '../db/binary-copy.js';
-import { CacheSink, type CacheState, readCacheState } from './cache-sink.js';
+import { CacheSink, type CachePlan, readCacheState } from './cache-sink.js';
 import type { Db, DbSession } from '../db/database.js';
-import { type ChangeMark, changesSince, readChangeMark } from '../jobs/change-log.js';
+import { changesSince, readChangeMark } from '../jobs/change-log.js';
 
 /**
  * The checks' compact copy of the sales table (sql/000009.sql): blocks of BLOCK_DAYS days per
@@ -19,17 +19,8 @@ const BLOCK_BYTES = BLOCK_DAYS * 4;
 
 export const blockOf = (day: number): number => Math.floor(day / BLOCK_DAYS);
 
-/** What a pass may take from the blocks. */
-export interface BlockPlan {
-  /** Days up to here come from the blocks; null: none, read everything from `sales`. */
-  readonly usable: number | null;
-  /** Why the blocks are not (wholly) usable, or null. */
-  readonly reason: string | null;
-  /** The change log before the plan was made: the mark of what this pass writes. */
-  readonly mark: ChangeMark;
-  /** The state as read, so a writer can tell another pass wrote in between. */
-  readonly state: CacheState | null;
-}
+/** What a sales pass may take from the blocks (`usable`: days up to that one). */
+export type BlockPlan = CachePlan;
 
 /**
  * Which days the blocks may give: those up to the state's covered day, less any sales changed
