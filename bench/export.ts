@@ -12,10 +12,12 @@
  *   --schema NAME     where the synthetic data lives (default bench_export; its tables are refilled)
  *
  * Each measured run is a child process, so its peak RSS is its own. Targets: export rate >= 0.5x
- * DuckDB's, export peak RSS < 1 GB; score at 30k series < 30 s.
+ * DuckDB's, export peak RSS < 1 GB; score at 30k series < 30 s. Beside the export it measures the
+ * read floor (the same rows read out of PostgreSQL and dropped), which bounds what any export
+ * reading the snapshot table can reach against DuckDB writing from its own memory.
  */
 import { spawnSync } from 'node:child_process';
-import { mkdtempSync, rmSync, statSync, writeFileSync } from 'node:fs';
+import { mkdtempSync, readFileSync, rmSync, statSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { fileURLToPath, pathToFileURL } from 'node:url';
@@ -139,6 +141,48 @@ async function childLarder(o: Opts): Promise<void> {
   );
 }
 
+/** CPU seconds a process has used so far, from /proc (user + system); null where it cannot be read. */
+function procCpuSeconds(pid: number): number | null {
+  try {
+    const stat = readFileSync(`/proc/${pid}/stat`, 'utf8');
+    const f = stat.slice(stat.lastIndexOf(')') + 2).split(' ');
+    // Fields 14 and 15 of proc(5) (utime, stime) are the 12th and 13th after the command name.
+    return (Number(f[11]) + Number(f[12])) / 100;
+  } catch {
+    return null;
+  }
+}
+
+/**
+ * The read floor: the same rows read out of PostgreSQL the way the export reads them (one binary
+ * COPY in storage order) and thrown away, undecoded. No export through a client can be faster.
+ * Where the server runs on this machine, its backend's CPU seconds are read from /proc too.
+ */
+async function childFloor(o: Opts): Promise<void> {
+  const config = await benchConfig(o.schema);
+  const db = await openDatabase(config, { migrate: false });
+  const t0 = performance.now();
+  const cpu0 = process.cpuUsage();
+  const r = await db.transaction(async (tx) => {
+    const info = await pinSnapshot(tx, o.set!, o.cutoff!);
+    const layout = exportLayout(info);
+    const pid = (await tx.query<{ pid: number }>('SELECT pg_backend_pid() AS pid')).rows[0]!.pid;
+    await tx.exec('SET LOCAL synchronize_seqscans = off; SET LOCAL max_parallel_workers_per_gather = 0');
+    const before = procCpuSeconds(pid);
+    let bytes = 0;
+    for await (const c of tx.copyTo(`COPY (${layout.select}) TO STDOUT (FORMAT binary)`))
+      bytes += c.byteLength;
+    const after = procCpuSeconds(pid);
+    return { bytes, serverCpu: before === null || after === null ? -1 : after - before };
+  });
+  const seconds = (performance.now() - t0) / 1000;
+  const cpu = process.cpuUsage(cpu0);
+  await db.close();
+  process.stdout.write(
+    `${JSON.stringify({ seconds, bytes: r.bytes, serverCpu: r.serverCpu, clientCpu: (cpu.user + cpu.system) / 1e6 })}\n`,
+  );
+}
+
 /** The reference: the same rows, streamed the same way, appended into DuckDB, then COPY TO Parquet. */
 async function childDuck(o: Opts): Promise<void> {
   const config = await benchConfig(o.schema);
@@ -243,6 +287,7 @@ export async function main(args: string[]): Promise<void> {
   const { values: o } = parseArgs({ args, options: OPTIONS, strict: true });
   if (o.child === 'larder') return childLarder(o);
   if (o.child === 'duckdb') return childDuck(o);
+  if (o.child === 'floor') return childFloor(o);
   if (o.child === 'score') return childScore(o);
   const dir = mkdtempSync(join(tmpdir(), 'larder-bench-'));
   const line = (s: string) => process.stdout.write(`${s}\n`);
@@ -268,6 +313,7 @@ export async function main(args: string[]): Promise<void> {
       }
       const common = ['--set', set, '--cutoff', cutoff!, '--schema', schema];
       const mine = child(['--child', 'larder', ...common, '--out', join(dir, 'larder.parquet')]);
+      const floor = child(['--child', 'floor', ...common]);
       const ref = child(['--child', 'duckdb', ...common, '--out', join(dir, 'duckdb.parquet')]);
       const rate = (r: Record<string, number>, s = r.seconds!) => r.rows! / s;
       line(`export of ${mine.rows} rows to Parquet`);
@@ -279,6 +325,13 @@ export async function main(args: string[]): Promise<void> {
       );
       line(
         `    (stream + appender ${ref.streamed!.toFixed(2)} s, COPY TO parquet ${ref.copy!.toFixed(2)} s = ${Math.round(rate(ref, ref.copy!))} rows/s)`,
+      );
+      const server = floor.serverCpu! >= 0 ? `, server CPU ${floor.serverCpu!.toFixed(1)} s` : '';
+      line(
+        `  read floor         ${floor.seconds!.toFixed(2)} s  (COPY out of PostgreSQL, bytes dropped: ${(floor.bytes! / 1e9).toFixed(2)} GB${server}, client CPU ${floor.clientCpu!.toFixed(1)} s)`,
+      );
+      line(
+        `  larder export / read floor: ${(mine.seconds! / floor.seconds!).toFixed(2)}x   best reachable vs duckdb COPY alone (export at the floor): ${(ref.copy! / floor.seconds!).toFixed(2)}x`,
       );
       line(
         `  ratio vs duckdb end to end: ${(rate(mine) / rate(ref)).toFixed(2)}x   vs duckdb COPY alone: ${(rate(mine) / rate(ref, ref.copy!)).toFixed(2)}x   (target >= 0.5x, RSS < 1024 MB)`,
