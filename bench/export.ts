@@ -154,9 +154,11 @@ function procCpuSeconds(pid: number): number | null {
 }
 
 /**
- * The read floor: the same rows read out of PostgreSQL the way the export reads them (one binary
- * COPY in storage order) and thrown away, undecoded. No export through a client can be faster.
- * Where the server runs on this machine, its backend's CPU seconds are read from /proc too.
+ * The read floor: the same rows read out of PostgreSQL with one binary COPY in storage order (the
+ * export's physical read, without the sort it falls back to when the table is not in row order)
+ * and thrown away, undecoded. No export reading through one connection can be faster; where the
+ * server runs on this machine its backend's CPU seconds are read from /proc too, which bound an
+ * export that would split the read over several connections.
  */
 async function childFloor(o: Opts): Promise<void> {
   const config = await benchConfig(o.schema);
