@@ -77,8 +77,21 @@ export interface ReadPartitionOptions {
   readonly chainGroups?: GroupMap;
   /** Takes every sales row read (the in-process build's fingerprint of the sales). */
   readonly salesChecksum?: SalesChecksum;
-  /** The store's prices, read for every store at once (`readChainPrices`). */
-  readonly storePrices?: (store: string) => Promise<StorePrices>;
+  /** The store's sales from elsewhere than `sales` (the checks' blocks: `readStoreSales`). */
+  readonly storeSales?: (
+    store: string,
+    series: readonly PartitionSeries[],
+    base: number,
+    cutoff: number,
+  ) => Promise<number>;
+  /**
+   * The store's prices from elsewhere than a range scan of `prices`: read for every store at
+   * once (`readChainPrices`), or from the checks' copy (`readStorePricesFromCopy`).
+   */
+  readonly storePrices?: (
+    store: string,
+    departmentOf: ReadonlyMap<string, string | null>,
+  ) => Promise<StorePrices>;
 }
 
 /**
@@ -104,7 +117,9 @@ export async function readPartition(
   lap('seriesMs');
   const base =
     plan.salesFrom !== null ? day(plan.salesFrom) : series.reduce((m, x) => Math.min(m, x.firstDay), C);
-  const inputRows = await readPartitionSales(s, store, series, base, C, opts.salesChecksum);
+  const inputRows = opts.storeSales
+    ? await opts.storeSales(store, series, base, C)
+    : await readPartitionSales(s, store, series, base, C, opts.salesChecksum);
   lap('salesMs');
   const groupFrom = day(plan.groupFrom);
   const groups = storeGroups(series, plan.storeLevels, base, groupFrom, C) as Map<
@@ -136,7 +151,7 @@ export async function readPartition(
   if (needs.some((n) => n.prices)) {
     departmentOf = await readDepartments(s);
     const p = opts.storePrices
-      ? await opts.storePrices(store)
+      ? await opts.storePrices(store, departmentOf)
       : await readPartitionPrices(s, store, day(plan.priceBoundary), departmentOf);
     prices = p.prices;
     deptPrices = p.deptPrices;

@@ -248,7 +248,7 @@ export interface StorePrices {
  * Adds one item's price rows (weeks ascending) to its store's maps. Items are added in item
  * order (the database's), so every map is filled in the same order whichever reader called.
  */
-function addItemPrices(
+export function addItemPrices(
   out: StorePrices,
   item: string,
   dept: string | null | undefined,

@@ -9,6 +9,11 @@ export interface RowLayout {
   readonly from: number;
   /** Origin mode: training origins, ascending, all before the cutoff (the cutoff is the prediction origin). */
   readonly origins: Int32Array;
+  /**
+   * Shift mode: the first prediction day emitted (default C + 1). An incremental refresh that
+   * keeps the previous snapshot's prediction rows C+1 .. P+H computes only the days after them.
+   */
+  readonly predictFrom?: number;
 }
 
 /** The rows of one series with their keys and labels. */
@@ -29,7 +34,8 @@ export function trainingOrigins(cutoff: number, from: number, every: number): In
 
 /**
  * Rows of one series in (origin, day) order. Training rows are the days with a sales row (the
- * label is known); prediction rows are always exactly H: C+1 .. C+H (origin mode: origin C).
+ * label is known); prediction rows are exactly H: C+1 .. C+H (origin mode: origin C), unless a
+ * refresh asks only for those from `predictFrom` on.
  * `units` is dense from `base`, NaN where there is no row.
  */
 export function seriesRows(layout: RowLayout, base: number, units: Float64Array): SeriesRows {
@@ -45,7 +51,9 @@ export function seriesRows(layout: RowLayout, base: number, units: Float64Array)
   } else {
     for (const o of layout.origins) for (let h = 1; h <= H && o + h <= C; h++) if (has(o + h)) train++;
   }
-  const n = train + H;
+  // Prediction days emitted: C+1 .. C+H, or from `predictFrom` on (shift mode).
+  const p0 = layout.mode === 'shift' ? Math.max(C + 1, layout.predictFrom ?? C + 1) : C + 1;
+  const n = train + (layout.mode === 'shift' ? Math.max(0, C + H - p0 + 1) : H);
   const day = new Int32Array(n);
   const anchor = new Int32Array(n);
   const limit = new Int32Array(n);
@@ -58,7 +66,7 @@ export function seriesRows(layout: RowLayout, base: number, units: Float64Array)
       day[r] = t;
       label[r++] = units[t - base]!;
     }
-    for (let t = C + 1; t <= C + H; t++) {
+    for (let t = p0; t <= C + H; t++) {
       day[r] = t;
       label[r++] = Number.NaN;
     }

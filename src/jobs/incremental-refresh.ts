@@ -2,6 +2,8 @@ import { randomBytes } from 'node:crypto';
 import { availableParallelism } from 'node:os';
 import { type BuildPlan, buildWindow, planFeatureSet, snapshotTableDdl } from '../build/build-plan.js';
 import { type PartitionData, readPartition } from '../build/build-partition.js';
+import { readPartitionPrices } from '../build/partition-input.js';
+import { readStorePricesFromCopy, readStoreSales } from '../build/copy-input.js';
 import {
   hasStockoutStates,
   keepsStockoutStates,
@@ -13,7 +15,7 @@ import {
 import { computeSeriesFeatures } from '../build/compute-series.js';
 import { dataFingerprint } from '../build/fingerprint.js';
 import { stageChainGroups } from '../build/chain-groups.js';
-import { seriesRows } from '../build/series-rows.js';
+import { type RowLayout, seriesRows } from '../build/series-rows.js';
 import type { Config } from '../config/config.js';
 import { formatDay, parseDay } from '../core/days.js';
 import { CopyBinaryWriter } from '../db/binary-copy.js';
@@ -21,7 +23,8 @@ import { type Db, type DbSession, quoteIdent, safeIdent } from '../db/database.j
 import { LarderError } from '../db/errors.js';
 import { calendarCodes } from '../features/calendar.js';
 import type { SeriesInput } from '../features/family.js';
-import { resolveFeatureSet } from '../features/feature-set.js';
+import { type ResolvedFeatureSet, resolveFeatureSet } from '../features/feature-set.js';
+import { weekStartOf } from '../features/prices.js';
 import { stockoutMask } from '../features/stockout-mask.js';
 import { resumeStockoutMask, type StockoutState, stockoutStateOf } from '../features/stockout-state.js';
 import { deleteRetiredRows, ensureRefreshIndexes } from './refresh-indexes.js';
@@ -73,8 +76,55 @@ export interface RefreshPlan {
    * null: the set has no mask. Both keep states for the next refresh.
    */
   readonly stockout?: 'tail' | 'whole' | null;
+  /**
+   * The previous snapshot's prediction rows C+1 .. P+H are kept where they cannot have changed,
+   * and only the days after them are computed; null (or absent, in an older plan): all of them
+   * are computed again. See `keptPredictions`.
+   */
+  readonly keep?: KeptPredictions | null;
   /** A build plan over the anchor days P+1 .. C+H only; its staging table receives the new rows. */
   readonly build: BuildPlan;
+}
+
+/**
+ * Why the previous prediction rows C+1 .. P+H can be kept. A prediction row t has the boundary
+ * t - g <= P under both cutoffs (g >= H and t <= P + H), so its sales, group, encoding and
+ * stock-out cells read the same unchanged days, and its calendar cells do not depend on the
+ * cutoff (days_ahead exists only in origin mode). Only its price cells can see the cutoff: the
+ * price boundary moves from pbP to pbC. A day t whose retail week starts within the boundary
+ * uses that week's row, whose statistics read rows up to it only; a week starting past the
+ * boundary uses the item's last row within it. So the rows stay the same unless a kept day's
+ * week starts in (pbP, pbC] (then none is kept: `keptPredictions` returns null), or a kept day
+ * uses the last row and the item has a price row in (pbP, pbC] (that series is computed whole,
+ * as is a series first sold after P, which the previous snapshot does not hold). A set that
+ * allows leaks may read past boundaries: nothing is kept.
+ */
+export interface KeptPredictions {
+  /** The previous snapshot's price boundary pbP. */
+  readonly previousPriceBoundary: string;
+  /** Some kept day's week starts past pbC: an item with a price row in (pbP, pbC] is computed whole. */
+  readonly usesLastPrice: boolean;
+}
+
+export function keptPredictions(
+  set: ResolvedFeatureSet,
+  P: number,
+  C: number,
+  pbP: number,
+  pbC: number,
+  prices: boolean,
+): KeptPredictions | null {
+  const H = set.shape.horizon;
+  if (set.unsafe || C >= P + H) return null;
+  let usesLastPrice = false;
+  if (prices) {
+    for (let t = C + 1; t <= P + H; t++) {
+      const ws = weekStartOf(t, set.weekStart);
+      if (ws > pbP && ws <= pbC) return null;
+      if (ws > pbC) usesLastPrice = true;
+    }
+  }
+  return { previousPriceBoundary: formatDay(pbP), usesLastPrice };
 }
 
 /** Why a set is rebuilt in full instead (for the run's record). */
@@ -266,6 +316,7 @@ export async function createRefreshPlan(db: Db, config: Config, basis: RefreshBa
     changeMark: basis.changeMark,
     priceBoundary: formatDay(w.priceBoundary),
     stockout,
+    keep: keptPredictions(set, P, C, buildWindow(set, P, P).priceBoundary, w.priceBoundary, w.prices),
     build,
   };
 }
@@ -300,7 +351,15 @@ export async function refreshPartition(db: Db, plan: RefreshPlan, store: string)
       `DELETE FROM ${table} WHERE series_id IN (SELECT series_id FROM series WHERE store_id = $1)`,
       [store],
     );
-    const data = await readPartition(tx, b, set, store);
+    const pbC = parseDay(b.priceBoundary)!;
+    // Sales and prices from the checks' copies when they are current (the runner's checks have
+    // just brought them up to date).
+    const data = await readPartition(tx, b, set, store, {
+      storeSales: (st, series, base, cutoff) => readStoreSales(tx, st, series, base, cutoff),
+      storePrices: async (st, departmentOf) =>
+        (await readStorePricesFromCopy(tx, st, pbC, departmentOf)) ??
+        (await readPartitionPrices(tx, st, pbC, departmentOf)),
+    });
     const C = parseDay(b.cutoff)!;
     const P = parseDay(plan.previousCutoff)!;
     const keepFrom = C + 1 - refreshReach(set);
@@ -336,19 +395,31 @@ export async function refreshPartition(db: Db, plan: RefreshPlan, store: string)
       });
       return mask;
     };
-    const layout = {
+    const layout: RowLayout = {
       mode: 'shift' as const,
       cutoff: C,
       horizon: set.shape.horizon,
       from: parseDay(b.from)!,
       origins: new Int32Array(0),
     };
+    // Series whose previous prediction rows are kept get only the days after them.
+    const keep = plan.keep ?? null;
+    const pbP = keep ? parseDay(keep.previousPriceBoundary)! : 0;
+    const keptLayout: RowLayout = { ...layout, predictFrom: P + set.shape.horizon + 1 };
+    const layoutOf = (x: PartitionData['series'][number]): RowLayout => {
+      if (!keep || x.firstDay > P) return layout;
+      if (keep.usesLastPrice) {
+        const weeks = data.env.prices?.get(x.hierarchy.itemId)?.weeks;
+        if (weeks && weeks.length > 0 && weeks[weeks.length - 1]! > pbP) return layout;
+      }
+      return keptLayout;
+    };
     const F = set.columns.length;
     let rows = 0;
     async function* chunks(): AsyncGenerator<Uint8Array> {
       const w = new CopyBinaryWriter();
       for (const x of data.series) {
-        const r = seriesRows(layout, data.base, x.units);
+        const r = seriesRows(layoutOf(x), data.base, x.units);
         const mask = maskOf(x);
         const input: SeriesInput = {
           seriesId: x.seriesId,
@@ -459,7 +530,18 @@ export async function finishRefresh(
       if (r.table_name !== plan.previousTable)
         await tx.exec(`DROP TABLE IF EXISTS ${quoteIdent(r.table_name)}`);
     await ensureRefreshIndexes(tx, plan.previousTable, plan.trainFrom);
-    const dropped = await deleteRetiredRows(tx, plan.previousTable, plan.trainFrom);
+    const dropped = await deleteRetiredRows(
+      tx,
+      plan.previousTable,
+      plan.trainFrom,
+      plan.keep
+        ? {
+            cutoff: plan.cutoff,
+            keptUntil: formatDay(parseDay(plan.previousCutoff)! + b.definition.horizon),
+            delta: b.stagingTable,
+          }
+        : null,
+    );
     const added = (
       await tx.query<{ train: number; predict: number }>(
         // In the delta's own order (each partition's rows in series order): sorting them first

@@ -53,15 +53,37 @@ export async function ensureRefreshIndexes(tx: Exec, table: string, trainFrom: s
   if (until === null || until <= from) await makeOldIndex(tx, table, from + COVER_DAYS);
 }
 
-/** Deletes the prediction rows and the training rows before `trainFrom`, each on its index. */
+/**
+ * Deletes the prediction rows and the training rows before `trainFrom`, each on its index. With
+ * `keep`, prediction rows after the new cutoff stay, except those of the series the refresh
+ * computed whole (its delta holds their prediction rows up to `keptUntil`).
+ */
 export async function deleteRetiredRows(
   tx: Exec,
   table: string,
   trainFrom: string,
+  keep: { cutoff: string; keptUntil: string; delta: string } | null = null,
 ): Promise<{ train: number; predict: number }> {
   const t = quoteIdent(table);
   // Literal days, so the planner sees that the statement's condition implies the index's.
-  const predict = (await tx.query(`DELETE FROM ${t} WHERE is_predict`)).rowCount;
+  let predict: number;
+  if (!keep) predict = (await tx.query(`DELETE FROM ${t} WHERE is_predict`)).rowCount;
+  else {
+    const C = `DATE '${formatDay(parseDay(keep.cutoff)!)}'`;
+    predict = (await tx.query(`DELETE FROM ${t} WHERE is_predict AND day <= ${C}`)).rowCount;
+    const whole = (
+      await tx.query<{ series_id: number }>(
+        `SELECT DISTINCT series_id FROM ${quoteIdent(keep.delta)} WHERE is_predict AND day <= DATE '${formatDay(parseDay(keep.keptUntil)!)}'`,
+      )
+    ).rows.map((r) => Number(r.series_id));
+    if (whole.length) {
+      predict += (
+        await tx.query(`DELETE FROM ${t} WHERE is_predict AND day > ${C} AND series_id = ANY($1::int4[])`, [
+          whole,
+        ])
+      ).rowCount;
+    }
+  }
   const train = (
     await tx.query(
       `DELETE FROM ${t} WHERE NOT is_predict AND day < DATE '${formatDay(parseDay(trainFrom)!)}'`,
