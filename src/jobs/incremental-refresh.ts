@@ -48,8 +48,9 @@ import {
  * to that boundary. So when the definition is the same and the data inside P's boundaries is
  * unchanged (P's data fingerprint recomputed on today's tables), every training row t <= P of
  * the new snapshot equals P's row, and only rows t > P are computed: the days P+1 .. C that
- * became training rows and the new prediction rows C+1 .. C+H. Training rows before the new
- * first training day are dropped. The tests compare the result with a full rebuild cell for cell.
+ * became training rows and the new prediction rows C+1 .. C+H, less the previous prediction
+ * rows that `keptPredictions` shows unchanged. Training rows before the new first training day
+ * are dropped. The tests compare the result with a full rebuild cell for cell.
  *
  * The previous snapshot's table is advanced in place (one transaction: delete, insert, move the
  * catalogue row to C), because copying the unchanged rows would cost as much as the full build's
@@ -470,7 +471,7 @@ export interface RefreshResult {
 
 /**
  * Moves the previous snapshot to the new cutoff in one transaction: drops its prediction rows
- * and the training rows before the new first day, adds the computed rows, and points the
+ * (those not kept) and the training rows before the new first day, adds the computed rows, and points the
  * catalogue row (under a new snapshot id) at the new cutoff and fingerprint. Readers holding
  * the catalogue row (withSnapshot) see the previous snapshot whole or the new one whole.
  */
