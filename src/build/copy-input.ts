@@ -22,6 +22,12 @@ import { quoteLiteral } from './sql-text.js';
 
 const REC = 12;
 
+/** A series whose dense units (from the read's base, NaN: no row) a sales reader fills. */
+export interface DenseSeries {
+  readonly seriesId: number;
+  units: Float64Array;
+}
+
 /**
  * One store's sales from `base` to `cutoff`, as `readPartitionSales` fills them: the days the
  * blocks may give (up to their usable day) from `sales_blocks`, the later ones from `sales` by a
@@ -30,7 +36,7 @@ const REC = 12;
 export async function readStoreSalesFromBlocks(
   s: DbSession,
   store: string,
-  series: readonly PartitionSeries[],
+  series: readonly DenseSeries[],
   base: number,
   cutoff: number,
 ): Promise<number | null> {
@@ -39,7 +45,7 @@ export async function readStoreSalesFromBlocks(
   const usable = Math.min(plan.usable, cutoff);
   if (usable < base) return null;
   const len = cutoff - base + 1;
-  const index = new Map<number, PartitionSeries>();
+  const index = new Map<number, DenseSeries>();
   for (const x of series) {
     x.units = new Float64Array(len).fill(Number.NaN);
     index.set(x.seriesId, x);

@@ -2,6 +2,7 @@ import { mkdtempSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { beforeAll, expect, test } from 'vitest';
+import { stageChainGroups } from '../../../src/build/chain-groups.js';
 import { readStorePricesFromCopy, readStoreSalesFromBlocks } from '../../../src/build/copy-input.js';
 import {
   type PartitionSeries,
@@ -117,6 +118,42 @@ test('the copies give what the tables give, days and weeks past them included', 
       }
     }
   });
+});
+
+test('chain-wide group totals staged from the blocks equal PostgreSQL summing the sales rows', async () => {
+  const { db } = t();
+  const from = parseDay(LAST)! - 200;
+  const cutoff = parseDay(LAST)! + 1; // the loaded day lies past the blocks
+  await stageChainGroups(db, 'copy_input_groups', ['item', 'total'], from, cutoff, 2);
+  // Decoded: per group and day offset, the total and the member count (big-endian records).
+  const staged = (
+    await db.query<{ level: string; k1: string; days: Buffer }>(
+      'SELECT level, k1, days FROM copy_input_groups ORDER BY level, k1',
+    )
+  ).rows.flatMap((r) => {
+    const out: string[] = [];
+    for (let p = 0; p < r.days.length; p += 16)
+      out.push(
+        `${r.level}|${r.k1}|${formatDay(from + r.days.readInt32BE(p))}|${r.days.readDoubleBE(p + 4)}|${r.days.readInt32BE(p + 12)}`,
+      );
+    return out;
+  });
+  // The reference: GROUP BY in PostgreSQL over the raw rows.
+  const ref = (
+    await db.query<{ line: string }>(
+      `SELECT line FROM (
+         SELECT 'item' AS level, r.item_id AS k1, s.day, sum(s.units)::float8 AS total, count(*) AS n
+         FROM sales s JOIN series r USING (series_id) WHERE s.day BETWEEN $1::date AND $2::date GROUP BY r.item_id, s.day
+         UNION ALL
+         SELECT 'total', '', s.day, sum(s.units)::float8, count(*) FROM sales s WHERE s.day BETWEEN $1::date AND $2::date GROUP BY s.day
+       ) x, LATERAL (SELECT level || '|' || k1 || '|' || day::text || '|' || total::text || '|' || n::text AS line) l
+       ORDER BY level, k1, day`,
+      [formatDay(from), formatDay(cutoff)],
+    )
+  ).rows.map((r) => r.line);
+  expect(staged.length).toBeGreaterThan(1000);
+  expect(staged).toEqual(ref);
+  await db.exec('DROP TABLE copy_input_groups');
 });
 
 test('a change the copies do not hold, or no copy at all, makes the readers decline', async () => {
