@@ -4,7 +4,6 @@ import { formatDay, parseDay } from '../core/days.js';
 import { type Db, quoteIdent, safeIdent } from '../db/database.js';
 import { UsageError } from '../db/errors.js';
 import { openDatabase } from '../db/open.js';
-import { openPgliteDatabase } from '../db/pglite-database.js';
 import { migrate } from '../db/migrate.js';
 import type { FeatureColumn } from '../features/family.js';
 import { type ResolvedFeatureSet, resolveFeatureSet } from '../features/feature-set.js';
@@ -344,6 +343,7 @@ async function compareSnapshots(
  */
 async function openScratch(db: Db, config: Config): Promise<{ db: Db; drop(): Promise<void> }> {
   if (db.kind === 'embedded') {
+    const { openPgliteDatabase } = await import('../db/pglite-database.js');
     const mem = await openPgliteDatabase(undefined, 'larder_audit');
     await migrate(mem);
     return { db: mem, drop: () => mem.close() };

@@ -3,7 +3,6 @@ import type { Config } from '../config/config.js';
 import type { Db } from './database.js';
 import { migrate } from './migrate.js';
 import { openPgDatabase } from './pg-database.js';
-import { openPgliteDatabase } from './pglite-database.js';
 
 export interface OpenOptions {
   /** Apply pending migrations (default true): every command that needs the schema gets it. */
@@ -18,7 +17,11 @@ export async function openDatabase(config: Config, opts: OpenOptions = {}): Prom
   const schema = opts.schema ?? config.database.schema;
   const db = config.database.url
     ? openPgDatabase(config.database.url, schema, opts.poolSize ?? config.database.poolSize)
-    : await openPgliteDatabase(resolve(config.database.embeddedDir), schema);
+    : // Loaded only when used: a process against a server never needs the embedded engine.
+      await (await import('./pglite-database.js')).openPgliteDatabase(
+        resolve(config.database.embeddedDir),
+        schema,
+      );
   if (opts.migrate ?? true) {
     try {
       await migrate(db);

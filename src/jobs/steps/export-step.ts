@@ -1,6 +1,5 @@
 import { mkdir } from 'node:fs/promises';
 import { join, resolve } from 'node:path';
-import { exportSnapshot } from '../../export/export-snapshot.js';
 import type { PipelineStep } from '../pipeline-step.js';
 
 /** Where a run writes a set's export: `<dir>/<set>-<cutoff>.<format>`, manifest beside it. */
@@ -17,6 +16,8 @@ export const exportStep: PipelineStep = {
     const cfg = env.config.pipeline.steps.export!;
     await mkdir(resolve(cfg.dir), { recursive: true });
     const out = exportPath(cfg.dir, env.set!, env.cutoff, cfg.format);
+    // Loaded here: the Arrow library is hundreds of modules, and most runs have no export step.
+    const { exportSnapshot } = await import('../../export/export-snapshot.js');
     const r = await exportSnapshot(env.db, env.config, {
       set: env.set!,
       cutoff: env.cutoff,
