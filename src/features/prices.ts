@@ -79,8 +79,11 @@ export function priceRowStats(
 const FEATURE_INDEX = new Map(PRICE_FEATURES.map((f, i) => [f, i]));
 
 /**
- * Fills `out[k][i]` with `features[k]` as of price row i. Only the requested features are
- * computed (a build asks for a few of the twelve, for every item of every store).
+ * Fills `out[k][i]` with `features[k]` as of price row i, for the rows i >= `from` (the running
+ * statistics still pass over every row; the rows before `from` are left as they were). Only the
+ * requested features are computed (a build asks for a few of the twelve, for every item of
+ * every store); `from` spares a refresh, which needs the last week or two, the department
+ * lookups and ratios of all the others.
  */
 function fillPriceRows(
   item: ItemPrices,
@@ -88,6 +91,7 @@ function fillPriceRows(
   deptMean: (week: number) => number,
   features: readonly PriceFeature[],
   out: readonly Float64Array[],
+  from = 0,
 ): void {
   const { weeks, prices } = item;
   const n = weeks.length;
@@ -126,6 +130,18 @@ function fillPriceRows(
     }
     const tp = ticks(p);
     if (seen) seen.add(tp);
+    if (i < from) {
+      // The trailing sums must still slide past this row.
+      if (cM4) {
+        sum4 += tp;
+        while (weeks[lo4]! < wk - 21) sum4 -= ticks(prices[lo4++]!);
+      }
+      if (cM52) {
+        sum52 += tp;
+        while (weeks[lo52]! < wk - 357) sum52 -= ticks(prices[lo52++]!);
+      }
+      continue;
+    }
     if (cMax) cMax[i] = max;
     if (cMin) cMin[i] = min;
     if (cMean) cMean[i] = mean;
@@ -233,8 +249,6 @@ export const prices = defineFamily<PricesParams>({
     const deptId = env.departmentOf?.get(s.itemId) ?? null;
     const dept = deptId === null ? null : (env.deptPrices?.get(deptId) ?? null);
     const means = deptId === null ? undefined : env.deptMeans?.get(deptId);
-    const bufs = p.features.map((_, k) => rowBuf(k, item.weeks.length));
-    fillPriceRows(item, dept, (wk) => means?.get(wk) ?? Number.NaN, p.features, bufs);
     if (idxBuf.length < rows.n) idxBuf = new Int32Array(Math.max(rows.n, 2 * idxBuf.length));
     const idx = idxBuf;
     // Rows come in day order (per origin in origin mode): walk the weeks alongside, as
@@ -244,17 +258,23 @@ export const prices = defineFamily<PricesParams>({
     const day = rows.day;
     let j = 0;
     let prev = -2147483648;
+    let first = last + 1;
     for (let r = 0; r < rows.n; r++) {
       const ws = weekStartOf(day[r]!, env.weekStart);
       if (ws > env.priceBoundary) {
         idx[r] = last;
+        if (last < first) first = last;
         continue;
       }
       if (ws < prev) j = 0;
       prev = ws;
       while (j <= last && weeks[j]! < ws) j++;
       idx[r] = j <= last && weeks[j] === ws ? j : -1;
+      if (idx[r]! >= 0 && idx[r]! < first) first = idx[r]!;
     }
+    // Only the price rows from the first one a target day uses are read below.
+    const bufs = p.features.map((_, k) => rowBuf(k, item.weeks.length));
+    fillPriceRows(item, dept, (wk) => means?.get(wk) ?? Number.NaN, p.features, bufs, first);
     for (let c = 0; c < p.features.length; c++) {
       const src = bufs[c]!;
       const col = out[c]!;
