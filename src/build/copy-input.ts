@@ -52,8 +52,11 @@ export async function readStoreSalesFromBlocks(
   }
   const st = plan.state;
   // The state guard sits in the statement: blocks rewritten meanwhile give no rows at all.
-  const sql = `COPY (SELECT b.series_id, b.block, b.units FROM series r
-      JOIN sales_blocks b ON b.series_id = r.series_id AND b.block BETWEEN ${blockOf(base)} AND ${blockOf(usable)}
+  // The blocks of each series by its key (OFFSET 0 keeps the loop): nothing analyses the
+  // blocks, and the planner's guess scanned all of them for each store (0.2 s, not 0.04 s).
+  const sql = `COPY (SELECT b.series_id, b.block, b.units FROM series r CROSS JOIN LATERAL
+      (SELECT b.series_id, b.block, b.units FROM sales_blocks b WHERE b.series_id = r.series_id
+        AND b.block BETWEEN ${blockOf(base)} AND ${blockOf(usable)} OFFSET 0) b
       WHERE r.store_id = ${quoteLiteral(store)} AND EXISTS (SELECT 1 FROM sales_blocks_state
         WHERE covered_to = DATE '${formatDay(st.coveredTo)}' AND change_last = ${st.last} AND change_count = ${st.count})
       ORDER BY b.series_id, b.block) TO STDOUT (FORMAT binary)`;

@@ -484,9 +484,14 @@ export async function finishRefresh(
   const prevTable = quoteIdent(plan.previousTable);
   const delta = quoteIdent(b.stagingTable);
   const result = await db.transaction(async (tx) => {
-    // Every statement here touches a few rows through an index; on an unanalysed table the
-    // planner's estimates would have it compile each with JIT, which costs more than the work.
+    // Every statement here touches a few rows through an index. Nothing has analysed the
+    // snapshot table, so the planner guesses a third to a half of it matches each delete: it
+    // would compile each statement with JIT, and on a large table scan it whole (measured on the
+    // 57M-row chain's 8.8 GB table: 8.7 s and 3.9 s for the two deletes, against 0.5 s each on
+    // their partial indexes). The bitmap of the prediction rows' pages stays exact in 64 MB.
     await tx.exec('SET LOCAL jit = off');
+    await tx.exec('SET LOCAL enable_seqscan = off');
+    await tx.exec("SET LOCAL work_mem = '64MB'");
     await tx.query('SELECT pg_advisory_xact_lock(hashtext($1))', [`larder.build.${plan.set}.${plan.cutoff}`]);
     await tx.query('SELECT pg_advisory_xact_lock(hashtext($1))', [
       `larder.build.${plan.set}.${plan.previousCutoff}`,

@@ -191,6 +191,13 @@ async function writeVersion(
   // The planner's cost for 40-odd float8 columns crosses the JIT threshold, and compiling the
   // row deforming took longer than the whole read of the prediction rows.
   await s.exec('SET jit = off');
+  // Nothing has analysed a just-built table, so the planner guesses half its rows are prediction
+  // rows and scans all of it; they are a horizon's worth per series (a few percent), and the
+  // partial index reads only their pages: measured 0.23 s instead of 1.77 s on a 1.7 GB snapshot,
+  // 1.2 s instead of 3.6 s on the 57M-row chain's 8.8 GB one.
+  // The bitmap of those pages stays exact (not lossy, which rechecks whole pages) in 64 MB.
+  await s.exec('SET enable_seqscan = off');
+  await s.exec("SET work_mem = '64MB'");
   const cols = entry.columns.map((c) => quoteIdent(c.name)).join(', ');
   const copy = `COPY (SELECT series_id, day${F ? `, ${cols}` : ''} FROM ${quoteIdent(entry.tableName)}
     WHERE is_predict) TO STDOUT (FORMAT binary)`;
@@ -241,7 +248,7 @@ async function writeVersion(
     await source.drain();
     throw err;
   } finally {
-    await s.exec('RESET jit').catch(() => {}); // a broken connection keeps the first error
+    await s.exec('RESET jit; RESET enable_seqscan; RESET work_mem').catch(() => {}); // a broken connection keeps the first error
   }
   await flush();
   if (open.size > 0) {
