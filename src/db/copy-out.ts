@@ -94,7 +94,10 @@ class CopyOutQuery {
   private detach(rest: Buffer | null): void {
     if (this.detached) return;
     this.detached = true;
-    const stream = this.stream!;
+    // Failed before it was submitted (the connection died with this query still queued): the
+    // socket was never taken.
+    const stream = this.stream;
+    if (stream === null) return;
     stream.removeListener('readable', this.notify);
     stream.on('data', this.pgData!);
     if (rest?.length) this.pgData!(rest);

@@ -1,5 +1,8 @@
+import pg from 'pg';
 import { expect, test } from 'vitest';
+import { copyOut } from '../../src/db/copy-out.js';
 import { useTestDb } from '../helpers/db.js';
+import { databaseUrl } from '../helpers/servers.js';
 
 const t = useTestDb(import.meta.url);
 
@@ -50,4 +53,27 @@ test('a server error in the middle of a COPY read is the error the reader sees; 
     BEGIN IF i % 1000 = 0 THEN RAISE NOTICE 'at %', i; END IF; RETURN i; END $$`);
   const got = await text(db.copyTo('COPY (SELECT loud(g) FROM generate_series(1, 5000) g) TO STDOUT'));
   expect(got).toBe(Array.from({ length: 5000 }, (_, i) => `${i + 1}\n`).join(''));
+});
+
+test('a COPY still queued when its connection dies fails with the connection error, not a crash', async () => {
+  const { db } = t();
+  const client = new pg.Client({ connectionString: await databaseUrl() });
+  await client.connect();
+  client.on('error', () => {}); // the terminated connection reports here too
+  const pid = (await client.query<{ pid: number }>('SELECT pg_backend_pid() AS pid')).rows[0]!.pid;
+  const sleeping = client.query('SELECT pg_sleep(30)').then(
+    () => null,
+    (e: Error) => e,
+  );
+  // Queued behind the sleep: never submitted, so it never took the socket.
+  const { chunks } = copyOut(client, 'COPY (SELECT 1) TO STDOUT');
+  await new Promise((r) => setTimeout(r, 100));
+  await db.query('SELECT pg_terminate_backend($1)', [pid]);
+  expect(await sleeping).toBeInstanceOf(Error);
+  await expect(
+    (async () => {
+      for await (const _ of chunks);
+    })(),
+  ).rejects.toThrow(/terminat|Connection/i);
+  await client.end().catch(() => {});
 });
