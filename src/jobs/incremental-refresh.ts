@@ -582,6 +582,24 @@ export async function finishRefresh(
       cutoff: parseDay(plan.cutoff)!,
       priceBoundary: parseDay(plan.priceBoundary)!,
     });
+    // What was kept, for a publish that carries those days over from the previous version.
+    await tx.exec(
+      'DELETE FROM snapshot_carries WHERE snapshot_id NOT IN (SELECT snapshot_id FROM snapshots)',
+    );
+    if (plan.keep) {
+      const P = parseDay(plan.previousCutoff)!;
+      await tx.query(
+        `INSERT INTO snapshot_carries (snapshot_id, from_snapshot_id, kept_from, kept_until, recomputed)
+         VALUES ($1, $2, $3::date, $4::date, $5::int4[])`,
+        [
+          Number(moved.rows[0]!.id),
+          plan.previousSnapshotId,
+          formatDay(parseDay(plan.cutoff)! + 1),
+          formatDay(P + b.definition.horizon),
+          dropped.recomputed,
+        ],
+      );
+    }
     if (plan.stockout) await moveStockoutStates(tx, b.stagingTable, plan.previousTable);
     await tx.exec(`DROP TABLE ${delta}`);
     if (b.groupTable) await tx.exec(`DROP TABLE IF EXISTS ${quoteIdent(b.groupTable)}`);

@@ -56,22 +56,23 @@ export async function ensureRefreshIndexes(tx: Exec, table: string, trainFrom: s
 /**
  * Deletes the prediction rows and the training rows before `trainFrom`, each on its index. With
  * `keep`, prediction rows after the new cutoff stay, except those of the series the refresh
- * computed whole (its delta holds their prediction rows up to `keptUntil`).
+ * computed whole (its delta holds their prediction rows up to `keptUntil`): `recomputed` lists them.
  */
 export async function deleteRetiredRows(
   tx: Exec,
   table: string,
   trainFrom: string,
   keep: { cutoff: string; keptUntil: string; delta: string } | null = null,
-): Promise<{ train: number; predict: number }> {
+): Promise<{ train: number; predict: number; recomputed: number[] }> {
   const t = quoteIdent(table);
   // Literal days, so the planner sees that the statement's condition implies the index's.
   let predict: number;
+  let whole: number[] = [];
   if (!keep) predict = (await tx.query(`DELETE FROM ${t} WHERE is_predict`)).rowCount;
   else {
     const C = `DATE '${formatDay(parseDay(keep.cutoff)!)}'`;
     predict = (await tx.query(`DELETE FROM ${t} WHERE is_predict AND day <= ${C}`)).rowCount;
-    const whole = (
+    whole = (
       await tx.query<{ series_id: number }>(
         `SELECT DISTINCT series_id FROM ${quoteIdent(keep.delta)} WHERE is_predict AND day <= DATE '${formatDay(parseDay(keep.keptUntil)!)}'`,
       )
@@ -89,5 +90,5 @@ export async function deleteRetiredRows(
       `DELETE FROM ${t} WHERE NOT is_predict AND day < DATE '${formatDay(parseDay(trainFrom)!)}'`,
     )
   ).rowCount;
-  return { train, predict };
+  return { train, predict, recomputed: whole };
 }

@@ -13,6 +13,7 @@ import {
   parseManifest,
   splitItems,
 } from './layout.js';
+import { planCarry } from './carry.js';
 import { drainable, readPredictRows } from './predict-rows.js';
 import { findSnapshot, type SnapshotEntry } from './snapshot-catalogue.js';
 
@@ -24,6 +25,11 @@ export interface PublishOptions {
   readonly graceSeconds?: number;
   /** Called after each written batch of series (progress for the CLI and the job runner). */
   readonly onProgress?: (written: number) => void;
+  /**
+   * Carry the days an incremental refresh kept over from the current version (default true);
+   * false reads every prediction row from the snapshot.
+   */
+  readonly carry?: boolean;
 }
 
 export interface PublishResult {
@@ -35,6 +41,8 @@ export interface PublishResult {
   readonly keys: number;
   /** Bytes of values written: vectors, store indexes and the manifest. */
   readonly bytes: number;
+  /** Series whose kept days came from the previous version instead of the snapshot (see carry.ts). */
+  readonly carried: number;
   readonly seconds: number;
   /** The version the pointer named before, now expiring; null on the first publish. */
   readonly previous: number | null;
@@ -44,6 +52,8 @@ export interface PublishResult {
 
 export interface PublishTimings {
   readonly readMs: number;
+  /** Reading the carried vectors of the previous version. */
+  readonly carryMs: number;
   readonly writeMs: number;
   readonly verifyMs: number;
   readonly switchMs: number;
@@ -101,7 +111,7 @@ export async function publishSnapshot(
         ).rows[0]!.id,
       );
       try {
-        const out = await writeVersion(s, cache, config, entry, graceSeconds, opts.onProgress);
+        const out = await writeVersion(s, cache, config, entry, graceSeconds, opts);
         await s.query(
           `UPDATE publishes SET status = 'done', version = $2, keys = $3, bytes = $4, finished_at = now()
            WHERE publish_id = $1`,
@@ -135,6 +145,7 @@ interface Written {
   readonly version: number;
   readonly keys: number;
   readonly bytes: number;
+  readonly carried: number;
   readonly previous: number | null;
   readonly timings: PublishTimings;
 }
@@ -145,8 +156,9 @@ async function writeVersion(
   config: Config,
   entry: SnapshotEntry,
   graceSeconds: number,
-  onProgress?: (written: number) => void,
+  opts: PublishOptions,
 ): Promise<Written> {
+  const onProgress = opts.onProgress;
   const layout = new KeyLayout(config.redis.prefix);
   const set = entry.set;
   const H = entry.horizon;
@@ -155,6 +167,8 @@ async function writeVersion(
   const pendingMs = config.serve.pendingSeconds * 1000;
   const t0 = performance.now();
   let writeMs = 0;
+  // Under the publish lock the pointer cannot move between this look and the switch.
+  const carry = opts.carry === false ? null : await planCarry(s, cache, layout, entry);
   const version = await cache.incr(layout.sequence(set));
 
   const names = new Map<number, { item: string; store: string }>();
@@ -166,13 +180,23 @@ async function writeVersion(
     names.set(r.id, { item: r.item, store: r.store });
   }
 
+  const where = `snapshot ${set} ${entry.cutoff} (table ${entry.tableName})`;
   // Rows arrive in table order, which a scan does not promise: each series' matrix fills by day
-  // and is written once all H rows are in, so memory holds only the series still incomplete.
+  // and is written once all its rows are in, so memory holds only the series still incomplete.
+  // A carried series needs only its rows after the kept days; the kept ones are then copied from
+  // its vector in the previous version, a batch of series at a time.
   const open = new Map<number, { values: Float32Array; seen: Uint8Array; count: number }>();
   const byStore = new Map<string, string[]>();
   const seriesKeys: string[] = [];
   let batch: CacheEntry[] = [];
   let bytes = 0;
+  let carryMs = 0;
+  let carried = 0;
+  const kept = carry?.days ?? 0;
+  /** Series read whole although not recomputed: their previous vector was missing. */
+  const whole = new Set<number>();
+  const carries = (id: number) => carry !== null && !carry.recomputed.has(id) && !whole.has(id);
+  let pending: Array<{ id: number; values: Float32Array }> = [];
   const flush = async () => {
     if (batch.length === 0) return;
     const tw = performance.now();
@@ -180,6 +204,46 @@ async function writeVersion(
     writeMs += performance.now() - tw;
     batch = [];
     onProgress?.(seriesKeys.length);
+  };
+  const nameOf = (id: number) => {
+    const name = names.get(id);
+    if (!name) throw new LarderError('SNAPSHOT_INVALID', `${where}: series ${id} is not in the series table`);
+    return name;
+  };
+  const emit = async (id: number, values: Float32Array) => {
+    const name = nameOf(id);
+    const key = layout.series(set, version, name.store, name.item);
+    const packed = LITTLE_ENDIAN_HOST ? Buffer.from(values.buffer) : packMatrix(values);
+    batch.push([key, packed]);
+    seriesKeys.push(key);
+    bytes += packed.byteLength;
+    pushTo(byStore, name.store, name.item);
+    if (batch.length >= WRITE_BATCH) await flush();
+  };
+  const mergeCarried = async () => {
+    if (!carry || pending.length === 0) return;
+    const list = pending;
+    pending = [];
+    const tc = performance.now();
+    const got = await cache.getPacked(
+      list.map(({ id }) => {
+        const name = nameOf(id);
+        return layout.series(set, carry.fromVersion, name.store, name.item);
+      }),
+      H * F,
+    );
+    carryMs += performance.now() - tc;
+    for (let i = 0; i < list.length; i++) {
+      const { id, values } = list[i]!;
+      if (!got.found[i]) {
+        whole.add(id); // read again in full below
+        continue;
+      }
+      const from = (i * H + carry.offset) * F;
+      values.set(got.values.subarray(from, from + kept * F), 0);
+      carried++;
+      await emit(id, values);
+    }
   };
   // A partial index on the prediction rows serves both this COPY and the reader's fallback
   // (series and day lookups): without it every fallback batch would scan the whole snapshot,
@@ -199,54 +263,66 @@ async function writeVersion(
   await s.exec('SET enable_seqscan = off');
   await s.exec("SET work_mem = '64MB'");
   const cols = entry.columns.map((c) => quoteIdent(c.name)).join(', ');
-  const copy = `COPY (SELECT series_id, day${F ? `, ${cols}` : ''} FROM ${quoteIdent(entry.tableName)}
-    WHERE is_predict) TO STDOUT (FORMAT binary)`;
-  const where = `snapshot ${set} ${entry.cutoff} (table ${entry.tableName})`;
-  const source = drainable(s.copyTo(copy));
+  const ids = (xs: Iterable<number>) => `'{${[...xs].join(',')}}'::int4[]`;
+  const readRows = async (filter: string) => {
+    const copy = `COPY (SELECT series_id, day${F ? `, ${cols}` : ''} FROM ${quoteIdent(entry.tableName)}
+      WHERE is_predict AND ${filter}) TO STDOUT (FORMAT binary)`;
+    const source = drainable(s.copyTo(copy));
+    try {
+      for await (const b of readPredictRows(source, F)) {
+        const sids = b.seriesIds;
+        const days = b.days;
+        for (let r = 0; r < b.length; r++) {
+          const id = sids[r]!;
+          const h = days[r]! - firstDay;
+          const carrying = carries(id);
+          if (h < (carrying ? kept : 0) || h >= H) {
+            throw new LarderError(
+              'SNAPSHOT_INVALID',
+              `${where}: series ${id} has a prediction row for ${formatDay(days[r]!)}, outside ${formatDay(firstDay)} .. ${formatDay(firstDay + H - 1)}`,
+            );
+          }
+          let m = open.get(id);
+          if (!m) {
+            m = { values: new Float32Array(H * F), seen: new Uint8Array(H), count: 0 };
+            open.set(id, m);
+          }
+          if (m.seen[h]) {
+            throw new LarderError(
+              'SNAPSHOT_INVALID',
+              `${where}: series ${id} has two prediction rows for ${formatDay(days[r]!)}`,
+            );
+          }
+          m.seen[h] = 1;
+          m.values.set(b.values.subarray(r * F, (r + 1) * F), h * F);
+          if (++m.count < (carrying ? H - kept : H)) continue;
+          open.delete(id);
+          if (carrying) {
+            pending.push({ id, values: m.values });
+            if (pending.length >= WRITE_BATCH) await mergeCarried();
+          } else await emit(id, m.values);
+        }
+      }
+    } catch (err) {
+      // The session runs more statements after this one (recording the failure): finish the COPY.
+      await source.drain();
+      throw err;
+    }
+  };
   try {
-    for await (const b of readPredictRows(source, F)) {
-      const ids = b.seriesIds;
-      const days = b.days;
-      for (let r = 0; r < b.length; r++) {
-        const id = ids[r]!;
-        const h = days[r]! - firstDay;
-        if (h < 0 || h >= H) {
-          throw new LarderError(
-            'SNAPSHOT_INVALID',
-            `${where}: series ${id} has a prediction row for ${formatDay(days[r]!)}, outside ${formatDay(firstDay)} .. ${formatDay(firstDay + H - 1)}`,
-          );
-        }
-        let m = open.get(id);
-        if (!m) {
-          m = { values: new Float32Array(H * F), seen: new Uint8Array(H), count: 0 };
-          open.set(id, m);
-        }
-        if (m.seen[h]) {
-          throw new LarderError(
-            'SNAPSHOT_INVALID',
-            `${where}: series ${id} has two prediction rows for ${formatDay(days[r]!)}`,
-          );
-        }
-        m.seen[h] = 1;
-        m.values.set(b.values.subarray(r * F, (r + 1) * F), h * F);
-        if (++m.count < H) continue;
-        open.delete(id);
-        const name = names.get(id);
-        if (!name)
-          throw new LarderError('SNAPSHOT_INVALID', `${where}: series ${id} is not in the series table`);
-        const key = layout.series(set, version, name.store, name.item);
-        const packed = LITTLE_ENDIAN_HOST ? Buffer.from(m.values.buffer) : packMatrix(m.values);
-        batch.push([key, packed]);
-        seriesKeys.push(key);
-        bytes += packed.byteLength;
-        pushTo(byStore, name.store, name.item);
-        if (batch.length >= WRITE_BATCH) await flush();
+    if (!carry) await readRows('true');
+    else {
+      // The days after the kept ones for every series, and every day of the recomputed ones.
+      await readRows(
+        `(day > DATE '${formatDay(carry.keptUntil)}' OR series_id = ANY(${ids(carry.recomputed)}))`,
+      );
+      await mergeCarried();
+      // A previous vector that was not there (evicted): that series is read whole.
+      if (whole.size > 0) {
+        for (const id of whole) open.delete(id);
+        await readRows(`series_id = ANY(${ids(whole)})`);
       }
     }
-  } catch (err) {
-    // The session runs more statements after this one (recording the failure): finish the COPY.
-    await source.drain();
-    throw err;
   } finally {
     await s.exec('RESET jit; RESET enable_seqscan; RESET work_mem').catch(() => {}); // a broken connection keeps the first error
   }
@@ -255,7 +331,7 @@ async function writeVersion(
     const [id, m] = open.entries().next().value!;
     throw new LarderError(
       'SNAPSHOT_INVALID',
-      `${where}: ${open.size} series lack prediction rows (series ${id} has ${m.count} of ${H})`,
+      `${where}: ${open.size} series lack prediction rows (series ${id} has ${m.count} of ${carries(id) ? `the ${H - kept} read` : H})`,
     );
   }
   if (seriesKeys.length === 0) throw new LarderError('SNAPSHOT_INVALID', `${where}: no prediction rows`);
@@ -313,12 +389,13 @@ async function writeVersion(
     await expireVersion(cache, layout, set, previous, graceSeconds);
   const t3 = performance.now();
   const timings = {
-    readMs: Math.round(t1 - t0 - writeMs),
+    readMs: Math.round(t1 - t0 - writeMs - carryMs),
+    carryMs: Math.round(carryMs),
     writeMs: Math.round(writeMs),
     verifyMs: Math.round(t2 - t1),
     switchMs: Math.round(t3 - t2),
   };
-  return { version, keys: seriesKeys.length, bytes, previous, timings };
+  return { version, keys: seriesKeys.length, bytes, carried, previous, timings };
 }
 
 /** The name of the prediction-row index of a snapshot table (within the 63-byte limit). */

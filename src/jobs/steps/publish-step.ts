@@ -20,9 +20,11 @@ export const publishStep: PipelineStep = {
           version: r.version,
           keys: r.keys,
           bytes: r.bytes,
+          carried: r.carried,
           previous: r.previous,
+          timings: r.timings,
         },
-        message: `version ${r.version} is current: ${r.keys} series keys, ${(r.bytes / 1e6).toFixed(1)} MB`,
+        message: `version ${r.version} is current: ${r.keys} series keys, ${(r.bytes / 1e6).toFixed(1)} MB${r.carried ? ` (${r.carried} carried the kept days over from version ${r.previous})` : ''}`,
       };
     } finally {
       await cache.close();
