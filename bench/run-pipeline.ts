@@ -10,7 +10,7 @@
  *   full-2   the same run forced, with a second worker process (`larder worker`) beside it;
  *   load     the held-back day loaded through the loader (one CSV file);
  *   incr     `larder run --cutoff latest`: the incremental refresh (load and incr repeat for each
- *            held-back day, alternating one and two partitions at a time).
+ *            held-back day, alternating one worker and two: the runner and a `larder worker`).
  * Reported: wall time of every run, the check / build / publish step times from run_steps, and
  * the ratio of the median incremental run to the full run with as many workers (target <= 5%). Checks run as warnings so the gate never
  * stops the measurement. Figures go to bench-output/run-pipeline.json.
@@ -223,8 +223,15 @@ export async function main(argv: string[]): Promise<void> {
       if (!loaded.ok) throw new Error(`the held-back file ${held.file} did not load`);
       log(`load    one day      ${loadSeconds.toFixed(2)} s  (${held.rows} rows)`);
 
-      const incr = await larder(['run', '--cutoff', 'latest', '--concurrency', String(concurrency)], childEnv)
-        .done;
+      // Two at a time as in full-2: the runner's own claim loop and one worker process beside it
+      // (started before the run, as a deployment's workers are already running).
+      const helper = concurrency === 2 ? larder(['worker', '--concurrency', '1'], childEnv) : null;
+      if (helper) await new Promise((r) => setTimeout(r, 2000)); // its start-up is not the run's
+      const incr = await larder(['run', '--cutoff', 'latest', '--concurrency', '1'], childEnv).done;
+      if (helper) {
+        helper.kill('SIGTERM');
+        await helper.done;
+      }
       if (incr.code !== 0) throw new Error(`incremental run failed:\n${incr.output}`);
       const steps = await stepTimes(db);
       const details = (
