@@ -120,7 +120,6 @@ function fillPriceRows(
   for (let i = 0; i < n; i++) {
     const p = prices[i]!;
     const wk = weeks[i]!;
-    if (cPrice) cPrice[i] = p;
     if (p > max) max = p;
     if (p < min) min = p;
     if (wantWelford) {
@@ -130,18 +129,16 @@ function fillPriceRows(
     }
     const tp = ticks(p);
     if (seen) seen.add(tp);
-    if (i < from) {
-      // The trailing sums must still slide past this row.
-      if (cM4) {
-        sum4 += tp;
-        while (weeks[lo4]! < wk - 21) sum4 -= ticks(prices[lo4++]!);
-      }
-      if (cM52) {
-        sum52 += tp;
-        while (weeks[lo52]! < wk - 357) sum52 -= ticks(prices[lo52++]!);
-      }
-      continue;
+    if (cM4) {
+      sum4 += tp;
+      while (weeks[lo4]! < wk - 21) sum4 -= ticks(prices[lo4++]!);
     }
+    if (cM52) {
+      sum52 += tp;
+      while (weeks[lo52]! < wk - 357) sum52 -= ticks(prices[lo52++]!);
+    }
+    if (i < from) continue;
+    if (cPrice) cPrice[i] = p;
     if (cMax) cMax[i] = max;
     if (cMin) cMin[i] = min;
     if (cMean) cMean[i] = mean;
@@ -149,16 +146,8 @@ function fillPriceRows(
     if (cRelMax) cRelMax[i] = p / max;
     if (cDistinct) cDistinct[i] = seen!.size;
     if (cM1) cM1[i] = i > 0 && weeks[i - 1] === wk - 7 ? p / prices[i - 1]! : Number.NaN;
-    if (cM4) {
-      sum4 += tp;
-      while (weeks[lo4]! < wk - 21) sum4 -= ticks(prices[lo4++]!);
-      cM4[i] = p / (sum4 / 10000 / (i - lo4 + 1));
-    }
-    if (cM52) {
-      sum52 += tp;
-      while (weeks[lo52]! < wk - 357) sum52 -= ticks(prices[lo52++]!);
-      cM52[i] = p / (sum52 / 10000 / (i - lo52 + 1));
-    }
+    if (cM4) cM4[i] = p / (sum4 / 10000 / (i - lo4 + 1));
+    if (cM52) cM52[i] = p / (sum52 / 10000 / (i - lo52 + 1));
     if (wantDept) {
       const atWeek = dept?.get(wk);
       if (cSame) cSame[i] = atWeek ? (atWeek.get(tp) ?? 0) : Number.NaN;

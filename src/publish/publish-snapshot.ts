@@ -319,7 +319,6 @@ async function writeVersion(
       await mergeCarried();
       // A previous vector that was not there (evicted): that series is read whole.
       if (whole.size > 0) {
-        for (const id of whole) open.delete(id);
         await readRows(`series_id = ANY(${ids(whole)})`);
       }
     }
