@@ -77,6 +77,11 @@ export interface ReadPartitionOptions {
   readonly chainGroups?: GroupMap;
   /** Takes every sales row read (the in-process build's fingerprint of the sales). */
   readonly salesChecksum?: SalesChecksum;
+  /**
+   * The first day of each of the store's series from elsewhere than a probe of `sales` per series
+   * (the checks' blocks: `readStoreFirstDays`); null: probe `sales`.
+   */
+  readonly firstDays?: (store: string, cutoff: number) => Promise<ReadonlyMap<number, number> | null>;
   /** The store's sales from elsewhere than `sales` (the checks' blocks: `readStoreSales`). */
   readonly storeSales?: (
     store: string,
@@ -113,7 +118,7 @@ export async function readPartition(
     reads[name] = Math.round(now - tr);
     tr = now;
   };
-  const series = await readPartitionSeries(s, store, C);
+  const series = await readPartitionSeries(s, store, C, (await opts.firstDays?.(store, C)) ?? undefined);
   lap('seriesMs');
   const base =
     plan.salesFrom !== null ? day(plan.salesFrom) : series.reduce((m, x) => Math.min(m, x.firstDay), C);

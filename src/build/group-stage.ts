@@ -48,8 +48,25 @@ export function levelKeySql(level: GroupLevel): string {
 export type GroupMap = Map<GroupLevel, Map<string, GroupSeries>>;
 
 /**
+ * What this process has read of one staged table: a worker computes partition after partition of
+ * the same plan, and chain-wide groups (an item over every store) are wanted by every partition, so
+ * each key is read once per process instead of once per partition. Keyed by the table's OID as
+ * well as its name and window: a table dropped and planned again under the same name is not the
+ * one cached. Only the newest table is kept; a cache past MAX_CACHED_VALUES is not grown.
+ */
+interface StagedCache {
+  readonly id: string;
+  /** null: the table holds no such key. */
+  readonly groups: Map<GroupLevel, Map<string, GroupSeries | null>>;
+  values: number;
+}
+let staged: StagedCache | null = null;
+const MAX_CACHED_VALUES = 32_000_000; // about 512 MB of totals and counts
+
+/**
  * Reads the staged totals of the given groups (keys as in `groupKey`) into dense arrays over
- * days base..cutoff: one COPY per level, filtered to the keys the partition needs.
+ * days base..cutoff: one COPY per level, filtered to the keys the partition needs and this
+ * process has not read yet for the same table (the arrays are shared and must not be written).
  */
 export async function readStagedGroups(
   s: DbSession,
@@ -60,20 +77,39 @@ export async function readStagedGroups(
   into: GroupMap,
 ): Promise<void> {
   const len = cutoff - base + 1;
+  const oid = (await s.query<{ oid: string | null }>('SELECT to_regclass($1)::oid::text AS oid', [table]))
+    .rows[0]?.oid;
+  const id = `${oid}:${table}:${base}:${cutoff}`;
+  if (staged?.id !== id) staged = oid ? { id, groups: new Map(), values: 0 } : null;
+  const cache = staged;
   for (const [level, keys] of wanted) {
     if (keys.size === 0) continue;
-    const k1s = new Set([...keys].map((k) => k.split(KEY_SEP)[0]!));
-    const sql = `COPY (SELECT k1, k2, days FROM ${quoteIdent(table)} WHERE level = ${quoteLiteral(level)}
-      AND k1 = ANY(${textArrayLiteral(k1s)})) TO STDOUT (FORMAT binary)`;
     const byKey = into.get(level) ?? new Map<string, GroupSeries>();
     into.set(level, byKey);
+    const known = cache?.groups.get(level);
+    const missing = new Set<string>();
+    for (const k of keys) {
+      const g = known?.get(k);
+      if (g) byKey.set(k, g);
+      else if (g === undefined) missing.add(k);
+    }
+    if (missing.size === 0) continue;
+    const keep = cache !== null && cache.values + missing.size * 2 * len <= MAX_CACHED_VALUES;
+    let cached = cache?.groups.get(level);
+    if (keep && !cached) {
+      cached = new Map();
+      cache!.groups.set(level, cached);
+    }
+    const k1s = new Set([...missing].map((k) => k.split(KEY_SEP)[0]!));
+    const sql = `COPY (SELECT k1, k2, days FROM ${quoteIdent(table)} WHERE level = ${quoteLiteral(level)}
+      AND k1 = ANY(${textArrayLiteral(k1s)})) TO STDOUT (FORMAT binary)`;
     for await (const [k1, k2, days] of readRawCopy(s.copyTo(sql))) {
       if (!k1 || !days) continue;
       const key =
         k2 === null || k2 === undefined
           ? k1.toString('utf8')
           : `${k1.toString('utf8')}${KEY_SEP}${k2.toString('utf8')}`;
-      if (!keys.has(key)) continue;
+      if (!missing.has(key)) continue;
       const total = new Float64Array(len);
       const n = new Float64Array(len);
       // Offsets count from the staging's first day, which is `base` (the plan's groupFrom).
@@ -85,7 +121,14 @@ export async function readStagedGroups(
           n[i] = dv.getInt32(p + 12);
         }
       }
-      byKey.set(key, { base, total, n });
+      const g = { base, total, n };
+      byKey.set(key, g);
+      if (keep) cached!.set(key, g);
+    }
+    if (keep) {
+      // A key the table does not hold is remembered as absent, so it is not asked for again.
+      for (const k of missing) if (!cached!.has(k)) cached!.set(k, null);
+      cache!.values += missing.size * 2 * len;
     }
   }
 }

@@ -19,12 +19,15 @@ export interface PartitionSeries {
 
 /**
  * The store's series that exist as of the cutoff (a sales row on or before it), in series
- * order. A series first sold after the cutoff is unknown to a build as of that cutoff.
+ * order. A series first sold after the cutoff is unknown to a build as of that cutoff. Each
+ * series' first day comes from `firstDays` when given (`readStoreFirstDays`: from the checks'
+ * copy, which the caller has checked is current), else from an index probe per series.
  */
 export async function readPartitionSeries(
   s: DbSession,
   store: string,
   cutoff: number,
+  firstDays?: ReadonlyMap<number, number>,
 ): Promise<PartitionSeries[]> {
   const rows = (
     await s.query<{
@@ -34,19 +37,29 @@ export async function readPartitionSeries(
       dept_id: string | null;
       category_id: string | null;
       region_id: string | null;
-      first_day: string;
+      first_day: string | null;
     }>(
-      `SELECT r.series_id, r.item_id, r.store_id, i.dept_id, i.category_id, st.region_id, f.first_day
-       FROM series r
-       LEFT JOIN items i ON i.item_id = r.item_id
-       LEFT JOIN stores st ON st.store_id = r.store_id
-       CROSS JOIN LATERAL (SELECT min(day) AS first_day FROM sales x WHERE x.series_id = r.series_id) f
-       WHERE r.store_id = $1 AND f.first_day <= $2
-       ORDER BY r.series_id`,
-      [store, formatDay(cutoff)],
+      firstDays
+        ? `SELECT r.series_id, r.item_id, r.store_id, i.dept_id, i.category_id, st.region_id, NULL AS first_day
+           FROM series r
+           LEFT JOIN items i ON i.item_id = r.item_id
+           LEFT JOIN stores st ON st.store_id = r.store_id
+           WHERE r.store_id = $1
+           ORDER BY r.series_id`
+        : `SELECT r.series_id, r.item_id, r.store_id, i.dept_id, i.category_id, st.region_id, f.first_day
+           FROM series r
+           LEFT JOIN items i ON i.item_id = r.item_id
+           LEFT JOIN stores st ON st.store_id = r.store_id
+           CROSS JOIN LATERAL (SELECT min(day) AS first_day FROM sales x WHERE x.series_id = r.series_id) f
+           WHERE r.store_id = $1 AND f.first_day <= $2
+           ORDER BY r.series_id`,
+      firstDays ? [store] : [store, formatDay(cutoff)],
     )
   ).rows;
-  return rows.map((r) => {
+  const out: PartitionSeries[] = [];
+  for (const r of rows) {
+    const firstDay = firstDays ? firstDays.get(r.series_id) : parseDay(r.first_day!)!;
+    if (firstDay === undefined || firstDay > cutoff) continue;
     const hierarchy: SeriesHierarchy = {
       itemId: r.item_id,
       storeId: r.store_id,
@@ -54,14 +67,15 @@ export async function readPartitionSeries(
       categoryId: r.category_id,
       regionId: r.region_id,
     };
-    return {
+    out.push({
       seriesId: r.series_id,
       hierarchy,
       keys: groupKeys(hierarchy),
-      firstDay: parseDay(r.first_day)!,
+      firstDay,
       units: new Float64Array(0),
-    };
-  });
+    });
+  }
+  return out;
 }
 
 /**

@@ -3,7 +3,7 @@ import { availableParallelism } from 'node:os';
 import { type BuildPlan, buildWindow, planFeatureSet, snapshotTableDdl } from '../build/build-plan.js';
 import { type PartitionData, readPartition } from '../build/build-partition.js';
 import { readPartitionPrices } from '../build/partition-input.js';
-import { readStorePricesFromCopy, readStoreSales } from '../build/copy-input.js';
+import { readStoreFirstDays, readStorePricesFromCopy, readStoreSales } from '../build/copy-input.js';
 import {
   hasStockoutStates,
   keepsStockoutStates,
@@ -356,6 +356,7 @@ export async function refreshPartition(db: Db, plan: RefreshPlan, store: string)
     // Sales and prices from the checks' copies when they are current (the runner's checks have
     // just brought them up to date).
     const data = await readPartition(tx, b, set, store, {
+      firstDays: (st, cutoff) => readStoreFirstDays(tx, st, cutoff),
       storeSales: (st, series, base, cutoff) => readStoreSales(tx, st, series, base, cutoff),
       storePrices: async (st, departmentOf) =>
         (await readStorePricesFromCopy(tx, st, pbC, departmentOf)) ??

@@ -3,7 +3,11 @@ import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { beforeAll, expect, test } from 'vitest';
 import { stageChainGroups } from '../../../src/build/chain-groups.js';
-import { readStorePricesFromCopy, readStoreSalesFromBlocks } from '../../../src/build/copy-input.js';
+import {
+  readStoreFirstDays,
+  readStorePricesFromCopy,
+  readStoreSalesFromBlocks,
+} from '../../../src/build/copy-input.js';
 import {
   type PartitionSeries,
   readDepartments,
@@ -47,6 +51,10 @@ beforeAll(async () => {
     ids[1],
     LAST,
   ]);
+  // A series first sold inside a block (not at its start), and one first sold on the day the
+  // first test loads, after the copies: both first days must come out as a probe of sales finds them.
+  await db.query(`DELETE FROM sales WHERE series_id = $1 AND day < $2::date - 77`, [ids[3], LAST]);
+  await db.query(`DELETE FROM sales WHERE series_id = $1`, [ids[4]]);
   await db.query(
     `INSERT INTO prices (item_id, store_id, week_start, price)
      SELECT item_id, store_id, $2::date - 30 + 2, 9.99 FROM series WHERE series_id = $1`,
@@ -70,10 +78,17 @@ const plain = (p: StorePrices) => ({
 
 async function salesBoth(s: DbSession, store: string, base: number, cutoff: number) {
   const a = await readPartitionSeries(s, store, cutoff);
-  const b = await readPartitionSeries(s, store, cutoff);
+  const firstDays = await readStoreFirstDays(s, store, cutoff);
+  const b = await readPartitionSeries(s, store, cutoff, firstDays ?? undefined);
+  const spans = (xs: readonly PartitionSeries[]) => xs.map((x) => [x.seriesId, formatDay(x.firstDay)]);
   await readPartitionSales(s, store, a, base, cutoff);
   const rows = await readStoreSalesFromBlocks(s, store, b, base, cutoff);
-  return { table: dense(a), copy: rows === null ? null : dense(b) };
+  return {
+    table: dense(a),
+    copy: rows === null ? null : dense(b),
+    firstTable: spans(a),
+    firstCopy: firstDays === null ? null : spans(b),
+  };
 }
 
 async function pricesBoth(s: DbSession, store: string, boundary: number) {
@@ -108,6 +123,7 @@ test('the copies give what the tables give, days and weeks past them included', 
         const r = await salesBoth(s, store, base, cutoff);
         expect(r.copy, `${store} ${formatDay(base)}..${formatDay(cutoff)}`).not.toBeNull();
         expect(r.copy).toEqual(r.table);
+        expect(r.firstCopy).toEqual(r.firstTable);
       }
       // Boundaries before, at and after the copy's newest week (the later weeks from prices).
       for (const boundary of [parseDay(LAST)! - 40, parseDay(LAST)!, parseDay(LAST)! + 30]) {
@@ -165,11 +181,13 @@ test('a change the copies do not hold, or no copy at all, makes the readers decl
     expect((await pricesBoth(s, store, parseDay(LAST)!)).copy).toBeNull();
     await s.query(`UPDATE sales SET units = units + 1 WHERE day = $1::date - 60`, [LAST]);
     expect((await salesBoth(s, store, parseDay(LAST)! - 90, parseDay(LAST)!)).copy).toBeNull();
+    expect((await salesBoth(s, store, parseDay(LAST)! - 90, parseDay(LAST)!)).firstCopy).toBeNull();
     // After a crash PostgreSQL empties the unlogged copies and their states together.
     await runChecks(db, config, { cutoff: LAST, today: LAST, keepCopies: true });
     expect((await salesBoth(s, store, parseDay(LAST)! - 90, parseDay(LAST)!)).copy).not.toBeNull();
     await s.exec('TRUNCATE sales_blocks, sales_blocks_state, price_history, price_history_state');
     expect((await salesBoth(s, store, parseDay(LAST)! - 90, parseDay(LAST)!)).copy).toBeNull();
+    expect((await salesBoth(s, store, parseDay(LAST)! - 90, parseDay(LAST)!)).firstCopy).toBeNull();
     expect((await pricesBoth(s, store, parseDay(LAST)!)).copy).toBeNull();
   });
 });
