@@ -25,14 +25,6 @@ export interface FeatureCache {
   getPacked(keys: readonly string[], floats: number): Promise<PackedBatch>;
   /** Writes every entry (pipelined), each expiring after `ttlMs` when given. */
   setMany(entries: readonly CacheEntry[], ttlMs?: number): Promise<void>;
-  /**
-   * For each entry, writes `to` as bytes [offset, offset + length) of the value under `from`
-   * followed by `tail`, expiring after `ttlMs`, on the server: the carried part of a vector never
-   * travels. Only where `from` holds a value of exactly `size` bytes; per entry 1 when written, 0
-   * when not. Absent on a Cluster (the two keys lie in different slots); resolves null when the
-   * server refuses scripts, and the caller copies the values itself.
-   */
-  splice?(entries: readonly SpliceEntry[], ttlMs: number): Promise<Uint8Array | null>;
   /** How many of `keys` exist. */
   countExisting(keys: readonly string[]): Promise<number>;
   /** Removes the expiry of every key; returns how many had one. */
@@ -67,15 +59,6 @@ export function packBatch(bufs: readonly (Uint8Array | null)[], floats: number):
     } else missing++;
   });
   return { values, found, missing };
-}
-
-export interface SpliceEntry {
-  readonly from: string;
-  readonly to: string;
-  readonly size: number;
-  readonly offset: number;
-  readonly length: number;
-  readonly tail: Buffer;
 }
 
 export type CacheEntry = readonly [key: string, value: Buffer | string];

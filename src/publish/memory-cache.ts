@@ -1,4 +1,4 @@
-import { type CacheEntry, type FeatureCache, packBatch, type SpliceEntry } from './feature-cache.js';
+import { type CacheEntry, type FeatureCache, packBatch } from './feature-cache.js';
 
 interface Slot {
   value: Buffer;
@@ -55,20 +55,6 @@ export function createMemoryCache(name = 'default'): FeatureCache {
     async setMany(entries: readonly CacheEntry[], ttlMs?: number) {
       const expiresAt = ttlMs ? Date.now() + ttlMs : 0;
       for (const [k, v] of entries) map.set(k, { value: toBuffer(v), expiresAt });
-    },
-    async splice(entries: readonly SpliceEntry[], ttlMs: number) {
-      const done = new Uint8Array(entries.length);
-      const expiresAt = Date.now() + ttlMs;
-      entries.forEach((e, i) => {
-        const v = live(e.from)?.value;
-        if (!v || v.byteLength !== e.size) return;
-        map.set(e.to, {
-          value: Buffer.concat([v.subarray(e.offset, e.offset + e.length), e.tail]),
-          expiresAt,
-        });
-        done[i] = 1;
-      });
-      return done;
     },
     async countExisting(keys) {
       let n = 0;

@@ -210,64 +210,20 @@ async function writeVersion(
     if (!name) throw new LarderError('SNAPSHOT_INVALID', `${where}: series ${id} is not in the series table`);
     return name;
   };
-  /** A series key of this version is (or is about to be) written: counted for the manifest. */
-  const record = (name: { item: string; store: string }, key: string, size: number) => {
-    seriesKeys.push(key);
-    bytes += size;
-    pushTo(byStore, name.store, name.item);
-  };
   const emit = async (id: number, values: Float32Array) => {
     const name = nameOf(id);
     const key = layout.series(set, version, name.store, name.item);
     const packed = LITTLE_ENDIAN_HOST ? Buffer.from(values.buffer) : packMatrix(values);
     batch.push([key, packed]);
-    record(name, key, packed.byteLength);
+    seriesKeys.push(key);
+    bytes += packed.byteLength;
+    pushTo(byStore, name.store, name.item);
     if (batch.length >= WRITE_BATCH) await flush();
-  };
-  // Where the cache can, a carried vector is put together on the server (the kept rows of the
-  // previous one, then the new rows): 4.7 kB a series stay there instead of travelling twice.
-  let splicing = cache.splice !== undefined;
-  const spliceCarried = async (list: Array<{ id: number; values: Float32Array }>): Promise<boolean> => {
-    if (!carry || !splicing) return false;
-    const size = H * F * 4;
-    const entries = list.map(({ id, values }) => {
-      const name = nameOf(id);
-      const rest = values.subarray(kept * F);
-      return {
-        from: layout.series(set, carry.fromVersion, name.store, name.item),
-        to: layout.series(set, version, name.store, name.item),
-        size,
-        offset: carry.offset * F * 4,
-        length: kept * F * 4,
-        tail: LITTLE_ENDIAN_HOST
-          ? Buffer.from(rest.buffer, rest.byteOffset, rest.byteLength)
-          : packMatrix(rest),
-      };
-    });
-    const tc = performance.now();
-    const done = await cache.splice!(entries, pendingMs);
-    carryMs += performance.now() - tc;
-    if (done === null) {
-      splicing = false;
-      return false;
-    }
-    for (let i = 0; i < list.length; i++) {
-      const id = list[i]!.id;
-      if (!done[i]) {
-        whole.add(id); // read again in full below
-        continue;
-      }
-      carried++;
-      record(nameOf(id), entries[i]!.to, size);
-    }
-    onProgress?.(seriesKeys.length);
-    return true;
   };
   const mergeCarried = async () => {
     if (!carry || pending.length === 0) return;
     const list = pending;
     pending = [];
-    if (await spliceCarried(list)) return;
     const tc = performance.now();
     const got = await cache.getPacked(
       list.map(({ id }) => {

@@ -8,7 +8,6 @@ import {
   type FeatureCache,
   packBatch,
   pushTo,
-  type SpliceEntry,
 } from './feature-cache.js';
 import { hashTag, LITTLE_ENDIAN_HOST } from './layout.js';
 
@@ -31,16 +30,6 @@ export interface RedisCacheOptions {
 
 /** Commands per pipeline when writing or expiring many keys (500 vectors of 4.5 kB: ~2 MB). */
 const WRITE_WINDOW = 500;
-
-/**
- * `splice` on the server: KEYS from, to; ARGV size, offset, length, ttl ms, tail. GET through
- * pcall, so a key of another type counts as absent instead of failing the pipeline.
- */
-const SPLICE_LUA = `local v = redis.pcall('GET', KEYS[1])
-if type(v) ~= 'string' or #v ~= tonumber(ARGV[1]) then return 0 end
-local a = tonumber(ARGV[2])
-redis.call('SET', KEYS[2], string.sub(v, a + 1, a + tonumber(ARGV[3])) .. ARGV[5], 'PX', ARGV[4])
-return 1`;
 /** Keys per MGET / EXISTS. */
 const MULTI_KEY_CHUNK = 500;
 
@@ -230,56 +219,8 @@ export function createRedisCache(opts: RedisCacheOptions): FeatureCache {
       });
     }
   };
-  // The script is loaded once per client (and again if the server forgot it); a server that
-  // refuses scripts (a disabled or renamed command, an ACL without them) answers null once and
-  // every later splice falls back to the caller's copy.
-  let spliceSha: Promise<string | null> | null = null;
-  const loadSplice = () =>
-    (spliceSha ??= (client as Redis).script('LOAD', SPLICE_LUA).then(
-      (sha) => String(sha),
-      (err: unknown) => {
-        if (isReplyError(err)) return null;
-        spliceSha = null;
-        throw err;
-      },
-    ));
-  const splice = async (entries: readonly SpliceEntry[], ttlMs: number): Promise<Uint8Array | null> =>
-    guard('EVALSHA', async () => {
-      const done = new Uint8Array(entries.length);
-      const run = async (lo: number, hi: number, retried = false): Promise<boolean> => {
-        const sha = await loadSplice();
-        if (sha === null) return false;
-        const p = client.pipeline();
-        for (let i = lo; i < hi; i++) {
-          const e = entries[i]!;
-          p.evalsha(sha, 2, e.from, e.to, e.size, e.offset, e.length, ttlMs, e.tail);
-        }
-        const res = (await p.exec()) ?? [];
-        for (let j = 0; j < res.length; j++) {
-          const [err, v] = res[j]!;
-          if (err) {
-            if (!retried && /^NOSCRIPT/.test((err as Error).message)) {
-              spliceSha = null;
-              return run(lo, hi, true);
-            }
-            throw err;
-          }
-          done[lo + j] = v === 1 ? 1 : 0;
-        }
-        return true;
-      };
-      const parts: Array<[number, number]> = [];
-      for (let i = 0; i < entries.length; i += WRITE_WINDOW)
-        parts.push([i, Math.min(entries.length, i + WRITE_WINDOW)]);
-      for (let i = 0; i < parts.length; i += 4) {
-        const ok = await Promise.all(parts.slice(i, i + 4).map(([lo, hi]) => run(lo, hi)));
-        if (ok.includes(false)) return null;
-      }
-      return done;
-    });
   return {
     kind: target.cluster ? 'cluster' : 'redis',
-    ...(target.cluster ? {} : { splice }),
     ready: () => client.status === 'ready',
     waitReady(timeoutMs) {
       if (client.status === 'ready') return Promise.resolve(true);

@@ -40,33 +40,4 @@ describe('in-process cache against Redis', () => {
       null,
     ]);
   });
-
-  it('puts a vector together on the server as the publisher would (splice)', async () => {
-    const run = async (c: FeatureCache, tag: string) => {
-      const k = (n: string) => `${p}:${tag}:${n}`;
-      await c.setMany([
-        [k('old'), Buffer.from([0, 1, 2, 3, 4, 5, 6, 7, 8, 9])],
-        [k('short'), Buffer.from([0, 1, 2])],
-      ]);
-      const entry = (from: string, to: string) => ({
-        from: k(from),
-        to: k(to),
-        size: 10,
-        offset: 2,
-        length: 3,
-        tail: Buffer.from([0xaa, 0xbb]),
-      });
-      const done = await c.splice!([entry('old', 'new'), entry('short', 'x'), entry('absent', 'y')], 60_000);
-      const values = (await c.getBuffers([k('new'), k('x'), k('y')])).map((b) => b?.toString('hex') ?? null);
-      // Written with the expiry: PERSIST counts it.
-      const expiring = await c.persistMany([k('new')]);
-      await c.deleteMany(['old', 'short', 'new'].map(k));
-      return { done: Array.from(done!), values, expiring };
-    };
-    const [want, got] = await Promise.all([run(redis, 'splice-r'), run(memory, 'splice-m')]);
-    // Bytes 2..4 of the old value, then the tail (worked by hand); the short and absent sources
-    // write nothing.
-    expect(want).toEqual({ done: [1, 0, 0], values: ['020304aabb', null, null], expiring: 1 });
-    expect(got).toEqual(want);
-  });
 });
