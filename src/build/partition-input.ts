@@ -39,20 +39,14 @@ export async function readPartitionSeries(
       region_id: string | null;
       first_day: string | null;
     }>(
-      firstDays
-        ? `SELECT r.series_id, r.item_id, r.store_id, i.dept_id, i.category_id, st.region_id, NULL AS first_day
-           FROM series r
-           LEFT JOIN items i ON i.item_id = r.item_id
-           LEFT JOIN stores st ON st.store_id = r.store_id
-           WHERE r.store_id = $1
-           ORDER BY r.series_id`
-        : `SELECT r.series_id, r.item_id, r.store_id, i.dept_id, i.category_id, st.region_id, f.first_day
-           FROM series r
-           LEFT JOIN items i ON i.item_id = r.item_id
-           LEFT JOIN stores st ON st.store_id = r.store_id
-           CROSS JOIN LATERAL (SELECT min(day) AS first_day FROM sales x WHERE x.series_id = r.series_id) f
-           WHERE r.store_id = $1 AND f.first_day <= $2
-           ORDER BY r.series_id`,
+      `SELECT r.series_id, r.item_id, r.store_id, i.dept_id, i.category_id, st.region_id,
+         ${firstDays ? 'NULL' : 'f.first_day'} AS first_day
+       FROM series r
+       LEFT JOIN items i ON i.item_id = r.item_id
+       LEFT JOIN stores st ON st.store_id = r.store_id
+       ${firstDays ? '' : 'CROSS JOIN LATERAL (SELECT min(day) AS first_day FROM sales x WHERE x.series_id = r.series_id) f'}
+       WHERE r.store_id = $1${firstDays ? '' : ' AND f.first_day <= $2'}
+       ORDER BY r.series_id`,
       firstDays ? [store] : [store, formatDay(cutoff)],
     )
   ).rows;
