@@ -95,7 +95,7 @@ export async function readStagedGroups(
     }
     if (missing.size === 0) continue;
     const keep = cache !== null && cache.values + missing.size * 2 * len <= MAX_CACHED_VALUES;
-    let cached = cache?.groups.get(level);
+    let cached = known;
     if (keep && !cached) {
       cached = new Map();
       cache!.groups.set(level, cached);
