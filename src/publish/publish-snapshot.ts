@@ -4,7 +4,13 @@ import type { Config } from '../config/config.js';
 import { formatDay, parseDay } from '../core/days.js';
 import { type Db, type DbSession, quoteIdent, safeIdent } from '../db/database.js';
 import { LarderError, UsageError } from '../db/errors.js';
-import { type CacheEntry, CacheUnavailableError, type FeatureCache, pushTo } from './feature-cache.js';
+import {
+  type CacheEntry,
+  CacheUnavailableError,
+  type FeatureCache,
+  type PackedBatch,
+  pushTo,
+} from './feature-cache.js';
 import {
   KeyLayout,
   type Manifest,
@@ -51,16 +57,49 @@ export interface PublishResult {
 }
 
 export interface PublishTimings {
+  /** Reading the table and packing: the time not spent waiting for the cache. */
   readonly readMs: number;
-  /** Reading the carried vectors of the previous version. */
+  /** Waiting for the carried vectors of the previous version. */
   readonly carryMs: number;
+  /** Waiting for writes (rounds overlap the reads, so only what they add shows). */
   readonly writeMs: number;
   readonly verifyMs: number;
   readonly switchMs: number;
 }
 
-/** Series written per cache round. */
+/** Series written per cache round, at most; a small set is cut into ROUNDS rounds, so its rounds overlap too. */
 const WRITE_BATCH = 2000;
+const ROUNDS = 8;
+/** Cache rounds of writes, and of reads of carried vectors, left under way while the next batch is read. */
+const WRITES_IN_FLIGHT = 2;
+const FETCHES_IN_FLIGHT = 2;
+
+/** Promises awaited in order, at most `limit` of them left pending; `waitedMs` is the time spent waiting. */
+class Lanes {
+  private readonly queue: Array<Promise<unknown>> = [];
+  waitedMs = 0;
+  constructor(private readonly limit: number) {}
+
+  /** Adds a round; waits for the oldest while more than `limit` are pending. */
+  async add(round: Promise<unknown>): Promise<void> {
+    round.catch(() => {}); // awaited in order; a failure must not go unhandled meanwhile
+    this.queue.push(round);
+    while (this.queue.length > this.limit) await this.wait(this.queue.shift()!);
+  }
+
+  async drain(): Promise<void> {
+    while (this.queue.length > 0) await this.wait(this.queue.shift()!);
+  }
+
+  private async wait(round: Promise<unknown>): Promise<void> {
+    const t = performance.now();
+    try {
+      await round;
+    } finally {
+      this.waitedMs += performance.now() - t;
+    }
+  }
+}
 const LITTLE_ENDIAN_HOST = endianness() === 'LE';
 
 /**
@@ -180,6 +219,7 @@ async function writeVersion(
     names.set(r.id, { item: r.item, store: r.store });
   }
 
+  const roundSize = Math.max(1, Math.min(WRITE_BATCH, Math.ceil(names.size / ROUNDS)));
   const where = `snapshot ${set} ${entry.cutoff} (table ${entry.tableName})`;
   // Rows arrive in table order, which a scan does not promise: each series' matrix fills by day
   // and is written once all its rows are in, so memory holds only the series still incomplete.
@@ -197,13 +237,15 @@ async function writeVersion(
   const whole = new Set<number>();
   const carries = (id: number) => carry !== null && !carry.recomputed.has(id) && !whole.has(id);
   let pending: Array<{ id: number; values: Float32Array }> = [];
+  // Cache rounds overlap: a batch is sent while the next is read and packed, and the carried
+  // vectors of one batch are fetched while the previous one is merged and written.
+  const writes = new Lanes(WRITES_IN_FLIGHT);
   const flush = async () => {
     if (batch.length === 0) return;
-    const tw = performance.now();
-    await cache.setMany(batch, pendingMs);
-    writeMs += performance.now() - tw;
+    const done = seriesKeys.length;
+    const sent = cache.setMany(batch, pendingMs);
     batch = [];
-    onProgress?.(seriesKeys.length);
+    await writes.add(onProgress ? sent.then(() => onProgress(done)) : sent);
   };
   const nameOf = (id: number) => {
     const name = names.get(id);
@@ -218,20 +260,30 @@ async function writeVersion(
     seriesKeys.push(key);
     bytes += packed.byteLength;
     pushTo(byStore, name.store, name.item);
-    if (batch.length >= WRITE_BATCH) await flush();
+    if (batch.length >= roundSize) await flush();
   };
-  const mergeCarried = async () => {
-    if (!carry || pending.length === 0) return;
-    const list = pending;
-    pending = [];
+  const fetching: Array<{ list: typeof pending; got: Promise<PackedBatch> }> = [];
+  /** Asks for the previous vectors of the pending series; merges the oldest batch asked for once `upTo` are waiting. */
+  const mergeCarried = async (upTo: number) => {
+    if (carry && pending.length > 0) {
+      const list = pending;
+      pending = [];
+      const got = cache.getPacked(
+        list.map(({ id }) => {
+          const name = nameOf(id);
+          return layout.series(set, carry.fromVersion, name.store, name.item);
+        }),
+        H * F,
+      );
+      got.catch(() => {}); // awaited in order below; a failure must not go unhandled meanwhile
+      fetching.push({ list, got });
+    }
+    while (fetching.length > upTo) await mergeBatch(fetching.shift()!);
+  };
+  const mergeBatch = async ({ list, got: asked }: (typeof fetching)[number]) => {
+    if (!carry) return;
     const tc = performance.now();
-    const got = await cache.getPacked(
-      list.map(({ id }) => {
-        const name = nameOf(id);
-        return layout.series(set, carry.fromVersion, name.store, name.item);
-      }),
-      H * F,
-    );
+    const got = await asked;
     carryMs += performance.now() - tc;
     for (let i = 0; i < list.length; i++) {
       const { id, values } = list[i]!;
@@ -299,7 +351,7 @@ async function writeVersion(
           open.delete(id);
           if (carrying) {
             pending.push({ id, values: m.values });
-            if (pending.length >= WRITE_BATCH) await mergeCarried();
+            if (pending.length >= roundSize) await mergeCarried(FETCHES_IN_FLIGHT);
           } else await emit(id, m.values);
         }
       }
@@ -316,7 +368,7 @@ async function writeVersion(
       await readRows(
         `(day > DATE '${formatDay(carry.keptUntil)}' OR series_id = ANY(${ids(carry.recomputed)}))`,
       );
-      await mergeCarried();
+      await mergeCarried(0);
       // A previous vector that was not there (evicted): that series is read whole.
       if (whole.size > 0) {
         await readRows(`series_id = ANY(${ids(whole)})`);
@@ -326,6 +378,8 @@ async function writeVersion(
     await s.exec('RESET jit; RESET enable_seqscan; RESET work_mem').catch(() => {}); // a broken connection keeps the first error
   }
   await flush();
+  await writes.drain();
+  writeMs = writes.waitedMs;
   if (open.size > 0) {
     const [id, m] = open.entries().next().value!;
     throw new LarderError(

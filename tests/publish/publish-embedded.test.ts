@@ -3,6 +3,8 @@ import { parseConfig } from '../../src/config/config.js';
 import type { Db } from '../../src/db/database.js';
 import { migrate } from '../../src/db/migrate.js';
 import { openPgliteDatabase } from '../../src/db/pglite-database.js';
+import type { FeatureCache } from '../../src/publish/feature-cache.js';
+import { KeyLayout } from '../../src/publish/layout.js';
 import { createMemoryCache } from '../../src/publish/memory-cache.js';
 import { publishSnapshot } from '../../src/publish/publish-snapshot.js';
 import { createReader } from '../../src/serve/reader.js';
@@ -41,5 +43,34 @@ describe('publish and read on the embedded database', () => {
     const miss = await reader.get({ set: 'daily', item: s.item, store: s.store, day: '2024-10-08' });
     expect(miss.source).toBe('fallback');
     expect(miss.rows).toEqual(hit.rows);
+  });
+
+  it('a cache round that fails while later rounds are under way fails the publish with its error', async () => {
+    const cache = createMemoryCache('embedded-failing');
+    const pointer = new KeyLayout('embedded_test').pointer('daily');
+    let rounds = 0;
+    let failAt = 0;
+    const counting: FeatureCache = {
+      ...cache,
+      setMany: (entries, ttl) => {
+        rounds++;
+        if (rounds !== failAt) return cache.setMany(entries, ttl);
+        const n = rounds;
+        return new Promise((_, reject) => setTimeout(() => reject(new Error(`round ${n} refused`)), 20));
+      },
+    };
+    const first = await publishSnapshot(db, counting, config, { set: 'daily', cutoff: fx.cutoff });
+    // The series go in several rounds, then one of store indexes and the manifest.
+    const total = rounds;
+    expect(total).toBeGreaterThan(3);
+    // A middle round, and the last round of series (nothing is sent after it that could fail).
+    for (const at of [2, total - 1]) {
+      rounds = 0;
+      failAt = at;
+      await expect(
+        publishSnapshot(db, counting, config, { set: 'daily', cutoff: fx.cutoff }),
+      ).rejects.toThrow(`round ${at} refused`);
+      expect(await cache.getString(pointer)).toBe(String(first.version));
+    }
   });
 });
