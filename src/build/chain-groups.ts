@@ -1,7 +1,9 @@
 import { type Db, quoteIdent } from '../db/database.js';
 import { readCopyBinary } from '../db/binary-copy.js';
 import { type GroupLevel, KEY_SEP } from '../features/group-levels.js';
+import type { GroupSeries } from '../features/family.js';
 import { type DenseSeries, readStoreSalesFromBlocks } from './copy-input.js';
+import { seedStagedGroups } from './group-stage.js';
 import { salesCopySql } from './partition-input.js';
 import { RawCopyWriter } from './raw-copy.js';
 
@@ -177,5 +179,21 @@ export async function stageChainGroups(
   // No index: a partition's read filters a few thousand small rows (the packed days live in the
   // TOAST table and are fetched only for the rows that match).
   await db.copyFrom(`COPY ${t} (level, k1, k2, days) FROM STDIN (FORMAT binary)`, packed());
+  // This process's own partitions take the totals from memory instead of reading them back.
+  const seed = new Map<GroupLevel, Map<string, GroupSeries>>();
+  let values = 0;
+  for (const { level, keys, total, n } of totals) {
+    const byKey = new Map<string, GroupSeries>();
+    keys.forEach(([k1, k2], g) => {
+      byKey.set(k2 === null ? k1 : `${k1}${KEY_SEP}${k2}`, {
+        base: from,
+        total: total.slice(g * len, (g + 1) * len),
+        n: Float64Array.from(n.subarray(g * len, (g + 1) * len)),
+      });
+    });
+    seed.set(level, byKey);
+    values += 2 * keys.length * len;
+  }
+  await seedStagedGroups(db, table, from, cutoff, seed, values);
   return { groups: totals.reduce((a, x) => a + x.keys.length, 0), rows };
 }

@@ -64,6 +64,30 @@ let staged: StagedCache | null = null;
 const MAX_CACHED_VALUES = 32_000_000; // about 512 MB of totals and counts
 
 /**
+ * Keeps in this process's cache the totals it has just staged into `table` over days
+ * base..cutoff (chain-groups.ts), as `readStagedGroups` would read them back: the planner's own
+ * claim loop then reads nothing back. `values` counts the totals and counts held.
+ */
+export async function seedStagedGroups(
+  s: DbSession,
+  table: string,
+  base: number,
+  cutoff: number,
+  groups: ReadonlyMap<GroupLevel, ReadonlyMap<string, GroupSeries>>,
+  values: number,
+): Promise<void> {
+  if (values > MAX_CACHED_VALUES) return;
+  const oid = (await s.query<{ oid: string | null }>('SELECT to_regclass($1)::oid::text AS oid', [table]))
+    .rows[0]?.oid;
+  if (!oid) return;
+  staged = {
+    id: `${oid}:${table}:${base}:${cutoff}`,
+    groups: new Map([...groups].map(([level, byKey]) => [level, new Map(byKey)])),
+    values,
+  };
+}
+
+/**
  * Reads the staged totals of the given groups (keys as in `groupKey`) into dense arrays over
  * days base..cutoff: one COPY per level, filtered to the keys the partition needs and this
  * process has not read yet for the same table (the arrays are shared and must not be written).
