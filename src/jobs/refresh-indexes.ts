@@ -54,41 +54,54 @@ export async function ensureRefreshIndexes(tx: Exec, table: string, trainFrom: s
 }
 
 /**
- * Deletes the prediction rows and the training rows before `trainFrom`, each on its index. With
- * `keep`, prediction rows after the new cutoff stay, except those of the series the refresh
- * computed whole (its delta holds their prediction rows up to `keptUntil`): `recomputed` lists them.
+ * Deletes the rows a refresh retires whatever it computes: the prediction rows up to the new
+ * cutoff (all of them when `cutoff` is null: nothing is kept) and the training rows before
+ * `trainFrom`, each on its index.
  */
 export async function deleteRetiredRows(
   tx: Exec,
   table: string,
   trainFrom: string,
-  keep: { cutoff: string; keptUntil: string; delta: string } | null = null,
-): Promise<{ train: number; predict: number; recomputed: number[] }> {
+  cutoff: string | null,
+): Promise<{ train: number; predict: number }> {
   const t = quoteIdent(table);
   // Literal days, so the planner sees that the statement's condition implies the index's.
-  let predict: number;
-  let whole: number[] = [];
-  if (!keep) predict = (await tx.query(`DELETE FROM ${t} WHERE is_predict`)).rowCount;
-  else {
-    const C = `DATE '${formatDay(parseDay(keep.cutoff)!)}'`;
-    predict = (await tx.query(`DELETE FROM ${t} WHERE is_predict AND day <= ${C}`)).rowCount;
-    whole = (
-      await tx.query<{ series_id: number }>(
-        `SELECT DISTINCT series_id FROM ${quoteIdent(keep.delta)} WHERE is_predict AND day <= DATE '${formatDay(parseDay(keep.keptUntil)!)}'`,
-      )
-    ).rows.map((r) => Number(r.series_id));
-    if (whole.length) {
-      predict += (
-        await tx.query(`DELETE FROM ${t} WHERE is_predict AND day > ${C} AND series_id = ANY($1::int4[])`, [
-          whole,
-        ])
-      ).rowCount;
-    }
-  }
+  const predict =
+    cutoff === null
+      ? (await tx.query(`DELETE FROM ${t} WHERE is_predict`)).rowCount
+      : (
+          await tx.query(
+            `DELETE FROM ${t} WHERE is_predict AND day <= DATE '${formatDay(parseDay(cutoff)!)}'`,
+          )
+        ).rowCount;
   const train = (
     await tx.query(
       `DELETE FROM ${t} WHERE NOT is_predict AND day < DATE '${formatDay(parseDay(trainFrom)!)}'`,
     )
   ).rowCount;
-  return { train, predict, recomputed: whole };
+  return { train, predict };
+}
+
+/**
+ * With kept prediction rows: deletes the kept rows (after `cutoff`) of the series the refresh
+ * computed whole (its delta holds their prediction rows up to `keptUntil`), and lists them.
+ */
+export async function deleteRecomputed(
+  tx: Exec,
+  table: string,
+  keep: { cutoff: string; keptUntil: string; delta: string },
+): Promise<{ predict: number; recomputed: number[] }> {
+  const whole = (
+    await tx.query<{ series_id: number }>(
+      `SELECT DISTINCT series_id FROM ${quoteIdent(keep.delta)} WHERE is_predict AND day <= DATE '${formatDay(parseDay(keep.keptUntil)!)}'`,
+    )
+  ).rows.map((r) => Number(r.series_id));
+  if (whole.length === 0) return { predict: 0, recomputed: [] };
+  const predict = (
+    await tx.query(
+      `DELETE FROM ${quoteIdent(table)} WHERE is_predict AND day > DATE '${formatDay(parseDay(keep.cutoff)!)}' AND series_id = ANY($1::int4[])`,
+      [whole],
+    )
+  ).rowCount;
+  return { predict, recomputed: whole };
 }

@@ -13,9 +13,11 @@ import { closeJob, findJob } from '../work-queue.js';
 import type { PipelineStep, StepEnv, StepResult } from '../pipeline-step.js';
 import {
   abortRefresh,
+  beginRefreshFinish,
   canRefresh,
   checkRefresh,
   createRefreshPlan,
+  type EarlyFinish,
   finishRefresh,
   type RefreshBasis,
   type RefreshPlan,
@@ -115,6 +117,10 @@ async function refresh(
   const inputs = env.state.plans.get(set)!.inputs;
   const t0 = performance.now();
   let planMs = 0;
+  // The finish's deletes start with the partitions when the pool has a connection to spare for
+  // them beside this process's claim loops (never on the embedded database's one connection).
+  const early = env.db.kind === 'server' && env.db.parallelism >= env.settings.concurrency + 2;
+  let begun: EarlyFinish | null = null;
   const run = await runPartitioned(env, kit, {
     kind: REFRESH_PARTITION,
     jobKey: `refresh:${set}:${env.cutoff}:${inputs.definitionHash}:${inputs.dataFingerprint}:${basis.previousSnapshotId}`,
@@ -133,8 +139,12 @@ async function refresh(
       const tp = performance.now();
       const plan = await createRefreshPlan(env.db, env.config, basis);
       planMs = performance.now() - tp;
+      if (early) begun = beginRefreshFinish(env.db, plan);
       return { payload: plan, partitions: plan.build.partitions };
     },
+  }).catch(async (err) => {
+    await begun?.abort();
+    throw err;
   });
   const plan = run.payload as RefreshPlan;
   const partitionsMs = performance.now() - t0 - planMs;
@@ -145,7 +155,8 @@ async function refresh(
       planMs: Math.round(planMs),
       partitionsMs: Math.round(partitionsMs),
     };
-    const r = await finishRefresh(env.db, plan, { runId: env.run.runId, jobId: run.jobId, ...timings });
+    const notes = { runId: env.run.runId, jobId: run.jobId, ...timings };
+    const r = begun ? await (begun as EarlyFinish).finish(notes) : await finishRefresh(env.db, plan, notes);
     await closeJob(env.db, run.jobId, 'done');
     await dropOrphanStockoutStates(env.db);
     const finishMs = Math.round(performance.now() - tf);

@@ -250,3 +250,48 @@ test('a change to older data makes the next run build in full, to the same cells
   await buildSnapshot(db, config, { set: 'small_ref', cutoff: next });
   expect(await snapshotChecksum(db, 'small', next)).toEqual(await snapshotChecksum(db, 'small_ref', next));
 });
+
+test('a refresh whose partitions fail rolls back the deletes its finish began beside them, and resumes to the same cells', async () => {
+  const { db, schema } = t();
+  const last = formatDay(parseDay(LAST)! + 6);
+  const next = formatDay(parseDay(last)! + 1);
+  const table = (
+    await db.query<{ table_name: string }>(
+      `SELECT table_name FROM snapshots WHERE set_name = 'small' AND cutoff = $1`,
+      [last],
+    )
+  ).rows[0]!.table_name;
+  const catalogue = async () =>
+    (
+      await db.query<{ snapshot_id: number; cutoff: string; row_count: number }>(
+        `SELECT snapshot_id, cutoff, row_count FROM snapshots WHERE set_name = 'small' ORDER BY cutoff`,
+      )
+    ).rows;
+  const listed = await catalogue();
+  const before = await snapshotChecksum(db, 'small', last);
+  await writeSalesCsv(db, next, join(watch, `sales_${next}.csv`));
+  // A series without its stock-out state: every attempt at its store's partition fails, after
+  // the finish has already deleted the rows the new day retires.
+  await db.query(
+    'CREATE TABLE saved_state AS SELECT * FROM stockout_states WHERE table_name = $1 AND series_id = (SELECT min(series_id) FROM series)',
+    [table],
+  );
+  await db.query(
+    'DELETE FROM stockout_states WHERE table_name = $1 AND series_id = (SELECT min(series_id) FROM series)',
+    [table],
+  );
+  const failed = await spawnLarder(['run', '--cutoff', 'latest'], env).done;
+  expect(failed.code, failed.output).toBe(1);
+  expect(failed.output).toContain('has no stock-out state');
+  // Nothing of the refresh is visible: the catalogue and every cell are as before it.
+  expect(await catalogue()).toEqual(listed);
+  expect(await snapshotChecksum(db, 'small', last)).toEqual(before);
+
+  await db.exec('INSERT INTO stockout_states SELECT * FROM saved_state; DROP TABLE saved_state');
+  const resumed = await spawnLarder(['run', '--cutoff', 'latest'], env).done;
+  expect(resumed.code, resumed.output).toBe(0);
+  expect(resumed.output).toContain(`refreshed from ${last}`);
+  const config = parseConfig({ ...rawConfig, database: { url: env.databaseUrl, schema } }, 'test');
+  await buildSnapshot(db, config, { set: 'small_ref', cutoff: next });
+  expect(await snapshotChecksum(db, 'small', next)).toEqual(await snapshotChecksum(db, 'small_ref', next));
+});
