@@ -18,6 +18,7 @@ export const checkStep: PipelineStep = {
       cutoff: env.cutoff,
       scheduled: env.settings.scheduled,
       keepCopies: true,
+      readBack: 'blocking',
       today: dayInZone(new Date()),
     });
     env.state.checkRunId = result.runId;
@@ -33,7 +34,7 @@ export const checkStep: PipelineStep = {
         .filter((c) => c.blocking + c.warnings > 0)
         .map((c) => ({ check: c.check, status: c.status, blocking: c.blocking, warnings: c.warnings })),
     };
-    const rows = result.findings.length;
+    const rows = result.blocking + result.warnings + result.infos + result.waived;
     if (result.blocking === 0) {
       const message = `passed (check run ${result.runId}): ${result.warnings} warnings, ${result.infos} infos, ${result.waived} waived`;
       return { status: 'succeeded', rows, details, message };
