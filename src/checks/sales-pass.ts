@@ -1,6 +1,7 @@
 import { formatDay } from '../core/days.js';
 import { readCopyBinary } from '../db/binary-copy.js';
 import type { Db } from '../db/database.js';
+import { RECENT_DAYS, RecentSalesKeeper } from './recent-sales.js';
 import { BLOCK_DAYS, BlockSink, blockOf, NO_ROW, planBlocks, readBlocks, readTail } from './sales-blocks.js';
 import type { Guarded } from './shared-pass.js';
 import { soldWeekStarts } from './sold-weeks.js';
@@ -142,12 +143,17 @@ export async function runSalesPass(
       ? new BlockSink(db, plan, writesFrom === null ? null : blockOf(writesFrom))
       : null;
 
+  // The runner's build reads the newest days next: they stay in this process (recent-sales.ts).
+  const keeper =
+    keepCopies && cutoff !== null ? new RecentSalesKeeper(cutoff - RECENT_DAYS + 1, cutoff) : null;
+
   const emit = () => {
     if (n === 0) return;
     series++;
     const view = dense.subarray(0, last + 1);
     const firstDay = first;
     sink?.add(current, firstDay, view);
+    keeper?.add(current, firstDay, view);
     let sold: Int32Array | undefined;
     const s: SeriesView = {
       seriesId: current,
@@ -234,6 +240,10 @@ export async function runSalesPass(
   rows = rowsFromBlocks + rowsFromSales;
   const grew = rows > 0 && (fromBlocks === null || totals.max > fromBlocks);
   const stored = sink ? await sink.finish(grew ? totals.max : null) : false;
+  // The blocks now are those written from the same arrays, or (nothing written) the ones planned.
+  keeper?.finish(
+    stored ? { coveredTo: totals.max, last: plan.mark.last, count: plan.mark.count } : plan.state,
+  );
   return {
     firstDay: rows ? totals.min : null,
     lastDay: rows ? totals.max : null,

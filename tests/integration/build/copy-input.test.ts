@@ -18,6 +18,7 @@ import {
 } from '../../../src/build/partition-input.js';
 import { CHECK_NAMES } from '../../../src/checks/registry.js';
 import { runChecks } from '../../../src/checks/run-checks.js';
+import { forgetRecentSales } from '../../../src/checks/recent-sales.js';
 import { BLOCK_DAYS } from '../../../src/checks/sales-blocks.js';
 import { type Config, parseConfig } from '../../../src/config/config.js';
 import { formatDay, parseDay } from '../../../src/core/days.js';
@@ -113,28 +114,52 @@ test('the copies give what the tables give, days and weeks past them included', 
     `item_id,store_id,day,units\n${rows.map((r, i) => `${r.item_id},${r.store_id},${next},${i % 4}`).join('\n')}\n`,
   );
   expect((await loadFiles(db, config, { files: { sales: file }, mode: 'append' })).ok).toBe(true);
-  await db.session(async (s) => {
-    for (const store of stores) {
-      for (const [base, cutoff] of [
-        [parseDay(FIRST)! - 3, parseDay(LAST)!],
-        [parseDay(LAST)! - 120, parseDay(next)!],
-        [BOUNDARY - BLOCK_DAYS + 7, parseDay(LAST)! - 10],
-      ] as const) {
-        const r = await salesBoth(s, store, base, cutoff);
-        expect(r.copy, `${store} ${formatDay(base)}..${formatDay(cutoff)}`).not.toBeNull();
-        expect(r.copy).toEqual(r.table);
-        expect(r.firstCopy).toEqual(r.firstTable);
-      }
-      // Boundaries before, at and after the copy's newest week (the later weeks from prices).
-      for (const boundary of [parseDay(LAST)! - 40, parseDay(LAST)!, parseDay(LAST)! + 30]) {
-        const r = await pricesBoth(s, store, boundary);
-        expect(r.copy, `${store} prices to ${formatDay(boundary)}`).not.toBeNull();
-        expect(r.copy).toEqual(r.table);
-        expect(r.table.prices.length).toBe(5);
-      }
-    }
-  });
+  // Twice: from the days the check pass kept in this process, and (those forgotten) from the
+  // blocks; the first way sends no read of the blocks at all.
+  for (const from of ['memory', 'blocks'] as const) {
+    if (from === 'blocks') forgetRecentSales();
+    let blockReads = 0;
+    await db.session(async (inner) => {
+      const s: DbSession = new Proxy(inner, {
+        get(target, prop, receiver) {
+          if (prop === 'copyTo')
+            return (sql: string) => {
+              if (sql.includes('sales_blocks b')) blockReads++;
+              return target.copyTo(sql);
+            };
+          const v = Reflect.get(target, prop, receiver);
+          return typeof v === 'function' ? v.bind(target) : v;
+        },
+      });
+      await compareCopies(s);
+    });
+    if (from === 'memory') expect(blockReads).toBe(0);
+    else expect(blockReads).toBeGreaterThan(0);
+  }
 });
+
+async function compareCopies(s: DbSession): Promise<void> {
+  const next = formatDay(parseDay(LAST)! + 1);
+  for (const store of stores) {
+    for (const [base, cutoff] of [
+      [parseDay(FIRST)! - 3, parseDay(LAST)!],
+      [parseDay(LAST)! - 120, parseDay(next)!],
+      [BOUNDARY - BLOCK_DAYS + 7, parseDay(LAST)! - 10],
+    ] as const) {
+      const r = await salesBoth(s, store, base, cutoff);
+      expect(r.copy, `${store} ${formatDay(base)}..${formatDay(cutoff)}`).not.toBeNull();
+      expect(r.copy).toEqual(r.table);
+      expect(r.firstCopy).toEqual(r.firstTable);
+    }
+    // Boundaries before, at and after the copy's newest week (the later weeks from prices).
+    for (const boundary of [parseDay(LAST)! - 40, parseDay(LAST)!, parseDay(LAST)! + 30]) {
+      const r = await pricesBoth(s, store, boundary);
+      expect(r.copy, `${store} prices to ${formatDay(boundary)}`).not.toBeNull();
+      expect(r.copy).toEqual(r.table);
+      expect(r.table.prices.length).toBe(5);
+    }
+  }
+}
 
 test('chain-wide group totals staged from the blocks equal PostgreSQL summing the sales rows', async () => {
   const { db } = t();
