@@ -24,6 +24,35 @@ interface Pending {
   timer?: NodeJS.Timeout;
 }
 
+/** A batch of commands answered each by a status, integer or error line (SET, PERSIST, EXPIRE). */
+interface WriteBatch {
+  readonly replies: number;
+  readonly what: string;
+  got: number;
+  /** Sum of the integer replies (PERSIST and EXPIRE answer 1 for each key they changed). */
+  sum: number;
+  /** The first error reply; the batch fails once every reply has come. */
+  error: string | null;
+  readonly resolve: (sum: number) => void;
+  readonly reject: (err: Error) => void;
+  timer?: NodeJS.Timeout;
+}
+
+const isBatch = (p: Pending | WriteBatch): p is WriteBatch => 'replies' in p;
+
+/** RESP encoding of one command whose arguments are strings or bytes. */
+function encode(args: ReadonlyArray<string | Uint8Array>, out: Array<string | Uint8Array>): void {
+  let head = `*${args.length}\r\n`;
+  for (const a of args) {
+    if (typeof a === 'string') head += `$${Buffer.byteLength(a)}\r\n${a}\r\n`;
+    else {
+      out.push(`${head}$${a.byteLength}\r\n`, a);
+      head = '\r\n';
+    }
+  }
+  out.push(head);
+}
+
 const CR = 13;
 const LF = 10;
 const EMPTY = new Float32Array(0);
@@ -35,12 +64,15 @@ const READ_BUFFER_BYTES = 1 << 20;
  * as they arrive, each value copied once from a reused read buffer into the batch's Float32Array.
  * The general client allocates a buffer per socket read and a Buffer object per value, which at
  * hundreds of megabytes a second is most of a bulk read's cost (and its garbage collections).
- * It speaks only the reply types MGET, AUTH and SELECT answer with (RESP2 arrays, bulk strings,
- * status and error lines); replies come back in order, so several MGETs may be in flight.
+ * It speaks only the reply types MGET, AUTH, SELECT and the publisher's SET, PERSIST and EXPIRE
+ * batches answer with (RESP2 arrays, bulk strings, status, integer and error lines); replies come
+ * back in order, so several MGETs and write batches may be in flight.
  */
 export class BulkConnection {
   private readonly socket: Socket;
-  private readonly queue: Pending[] = [];
+  private readonly queue: Array<Pending | WriteBatch> = [];
+  /** The write batch whose replies are arriving. */
+  private batch: WriteBatch | null = null;
   private readonly timeoutMs: number;
   private closed: Error | null = null;
   // Parser state, kept across reads.
@@ -126,6 +158,29 @@ export class BulkConnection {
     });
   }
 
+  /**
+   * SET of every entry (with PX `ttlMs` when given), written in one go without a client's per-command
+   * objects (a version's 141 MB took 0.15 s this way, 0.45 s through the general client's
+   * pipelines); resolves once every SET is answered, and fails with the first error reply.
+   */
+  setMany(entries: ReadonlyArray<readonly [string, Uint8Array | string]>, ttlMs?: number): Promise<number> {
+    const out: Array<string | Uint8Array> = [];
+    const ttl = ttlMs ? ['PX', String(ttlMs)] : [];
+    for (const [k, v] of entries) encode(['SET', k, typeof v === 'string' ? Buffer.from(v) : v, ...ttl], out);
+    return this.write(out, entries.length, 'SET');
+  }
+
+  /** PERSIST or EXPIRE (with `args`) of every key; resolves with how many keys it changed. */
+  eachKey(
+    command: 'PERSIST' | 'EXPIRE',
+    keys: readonly string[],
+    args: readonly string[] = [],
+  ): Promise<number> {
+    const out: Array<string | Uint8Array> = [];
+    for (const k of keys) encode([command, k, ...args], out);
+    return this.write(out, keys.length, command);
+  }
+
   close(): void {
     this.fail(new CacheUnavailableError('Redis bulk read: connection closed'));
     this.socket.destroy();
@@ -157,11 +212,48 @@ export class BulkConnection {
     });
   }
 
+  private write(out: ReadonlyArray<string | Uint8Array>, replies: number, what: string): Promise<number> {
+    if (this.closed) return Promise.reject(this.closed);
+    if (replies === 0) return Promise.resolve(0);
+    return new Promise<number>((resolve, reject) => {
+      const b: WriteBatch = { replies, what, got: 0, sum: 0, error: null, resolve, reject };
+      b.timer = setTimeout(() => {
+        this.fail(new CacheUnavailableError(`Redis did not answer ${what} in ${this.timeoutMs} ms`));
+        this.socket.destroy();
+      }, this.timeoutMs);
+      this.queue.push(b);
+      this.socket.cork();
+      for (const chunk of out) this.socket.write(chunk);
+      this.socket.uncork();
+    });
+  }
+
+  /** One reply line of the current write batch. */
+  private batchReply(b: WriteBatch, text: string): void {
+    const type = text.charCodeAt(0);
+    if (type === 58 /* : */) b.sum += Number(text.slice(1));
+    else if (type === 45 /* - */) b.error ??= text.slice(1);
+    else if (type !== 43 /* + */) {
+      this.protocol(text);
+      return;
+    }
+    if (++b.got < b.replies) return;
+    clearTimeout(b.timer);
+    this.batch = null;
+    if (b.error !== null) b.reject(new LarderError('CACHE_ERROR', `Redis refused ${b.what}: ${b.error}`));
+    else b.resolve(b.sum);
+  }
+
   private fail(err: Error): void {
     if (this.closed) return;
     this.closed = err;
-    const all = this.current ? [this.current, ...this.queue] : [...this.queue];
+    const all: Array<Pending | WriteBatch> = [
+      ...(this.current ? [this.current] : []),
+      ...(this.batch ? [this.batch] : []),
+      ...this.queue,
+    ];
     this.current = null;
+    this.batch = null;
     this.queue.length = 0;
     for (const p of all) {
       clearTimeout(p.timer);
@@ -200,6 +292,10 @@ export class BulkConnection {
 
   private onLine(text: string): void {
     const type = text.charCodeAt(0);
+    if (this.batch) {
+      this.batchReply(this.batch, text);
+      return;
+    }
     if (this.current) {
       if (type === 36 /* $ */) this.nextValue(Number(text.slice(1)));
       else this.protocol(text);
@@ -208,6 +304,11 @@ export class BulkConnection {
     const p = this.queue.shift();
     if (!p) {
       this.protocol(text);
+      return;
+    }
+    if (isBatch(p)) {
+      this.batch = p;
+      this.batchReply(p, text);
       return;
     }
     if (type === 45 /* - */) {

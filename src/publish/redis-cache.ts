@@ -202,6 +202,17 @@ export function createRedisCache(opts: RedisCacheOptions): FeatureCache {
       });
     return opening;
   };
+  /** A bulk command on the own connection, its failures as the other commands report them. */
+  const onBulk = async <T>(op: string, fn: (c: BulkConnection) => Promise<T>): Promise<T> => {
+    try {
+      return await fn(await bulkConnection());
+    } catch (err) {
+      if (err instanceof LarderError) throw err;
+      throw new CacheUnavailableError(`${what} did not answer ${op}: ${(err as Error).message}`, {
+        cause: err,
+      });
+    }
+  };
   const getPacked = async (keys: readonly string[], floats: number) => {
     if (client.status !== 'ready') {
       throw new CacheUnavailableError(`${what} is not connected (${client.status}) for MGET`, {
@@ -244,6 +255,10 @@ export function createRedisCache(opts: RedisCacheOptions): FeatureCache {
     },
     setMany: (entries: readonly CacheEntry[], ttlMs?: number) =>
       guard('SET', async () => {
+        if (bulkTarget) {
+          await onBulk('SET', (c) => c.setMany(entries, ttlMs));
+          return;
+        }
         await pipelined(
           entries.map(([k]) => k),
           (p, k, i) => {
@@ -258,10 +273,16 @@ export function createRedisCache(opts: RedisCacheOptions): FeatureCache {
         const counts = await Promise.all(groups(keys).map((idx) => client.exists(idx.map((i) => keys[i]!))));
         return counts.reduce((a, b) => a + b, 0);
       }),
-    persistMany: (keys) => guard('PERSIST', () => pipelined(keys, (p, k) => p.persist(k))),
+    persistMany: (keys) =>
+      guard('PERSIST', () =>
+        bulkTarget
+          ? onBulk('PERSIST', (c) => c.eachKey('PERSIST', keys))
+          : pipelined(keys, (p, k) => p.persist(k)),
+      ),
     expireMany: (keys, seconds) =>
       guard('EXPIRE', async () => {
-        await pipelined(keys, (p, k) => p.expire(k, seconds));
+        if (bulkTarget) await onBulk('EXPIRE', (c) => c.eachKey('EXPIRE', keys, [String(seconds)]));
+        else await pipelined(keys, (p, k) => p.expire(k, seconds));
       }),
     incr: (key) => guard('INCR', () => client.incr(key)),
     swap: (key, value) =>

@@ -175,4 +175,43 @@ describe('bulk reads against a server of their own', () => {
       await cache.close();
     }
   });
+
+  it('writes SETs, PERSISTs and EXPIREs that ioredis reads back, in order with reads in flight', async () => {
+    const c = await BulkConnection.open({ host: url.hostname, port: Number(url.port || 6379) }, 10_000, 2000);
+    const mine = Array.from({ length: 1200 }, (_, i) => `${p}:{bulkw}:s:${i}`);
+    try {
+      const values = mine.map((_, i) => vector(i + 0.5));
+      // A write batch between two MGETs: the replies of each come back to it.
+      const [before, wrote, after] = await Promise.all([
+        c.mget(mine, FLOATS),
+        c.setMany(
+          mine.map((k, i) => [k, i === 7 ? 'a string value' : values[i]!] as const),
+          60_000,
+        ),
+        c.mget(mine, FLOATS),
+      ]);
+      expect(before.missing).toBe(mine.length);
+      expect(wrote).toBe(0);
+      expect(after.missing).toBe(1); // the string value is not a vector
+      same(after, expected(await ref.mgetBuffer(mine)));
+      expect(await ref.get(mine[7]!)).toBe('a string value');
+      // With PX every key expires; PERSIST answers 1 for each key it changed, 0 for an absent one.
+      const ttl = await ref.pttl(mine[3]!);
+      expect(ttl).toBeGreaterThan(0);
+      expect(ttl).toBeLessThanOrEqual(60_000);
+      expect(await c.eachKey('PERSIST', [...mine, `${p}:{bulkw}:absent`])).toBe(mine.length);
+      expect(await ref.pttl(mine[3]!)).toBe(-1);
+      expect(await c.eachKey('EXPIRE', mine.slice(0, 10), ['30'])).toBe(10);
+      expect(await ref.ttl(mine[0]!)).toBeGreaterThan(0);
+      // An error reply fails the batch once all its replies are in; the connection goes on.
+      await expect(c.eachKey('EXPIRE', mine.slice(0, 3), ['soon'])).rejects.toThrow(
+        /Redis refused EXPIRE: ERR value is not an integer/,
+      );
+      expect(await c.eachKey('PERSIST', mine.slice(0, 10))).toBe(10);
+      expect(c.usable()).toBe(true);
+    } finally {
+      c.close();
+      await ref.unlink(...mine);
+    }
+  });
 });
