@@ -73,6 +73,18 @@ class DayAccumulator {
     if (day > this.max) this.max = day;
   }
 
+  /** Makes room for days lo..hi without counting anything (`units` and `rows` may be replaced). */
+  reserve(lo: number, hi: number): void {
+    if (lo - this.base < 0 || lo - this.base >= this.units.length) this.grow(lo);
+    if (hi - this.base < 0 || hi - this.base >= this.units.length) this.grow(hi);
+  }
+
+  /** A day that holds a row (written straight into `units` and `rows` after `reserve`). */
+  note(day: number): void {
+    if (day < this.min) this.min = day;
+    if (day > this.max) this.max = day;
+  }
+
   private grow(day: number): void {
     const lo = Math.min(this.units.length ? this.base : day, day) - 512;
     const hi = Math.max(this.units.length ? this.base + this.units.length : day + 1, day + 1) + 512;
@@ -189,6 +201,57 @@ export async function runSalesPass(
     totals.add(d, u);
   };
 
+  /**
+   * The stored days of one block (days day0 .. day0 + stop - 1 as int4 at `offset`, NO_ROW for
+   * none) as `add` would take them one by one, in one loop: the pass's most frequent work.
+   * Returns the rows it held.
+   */
+  const addBlock = (sid: number, day0: number, view: DataView, offset: number, stop: number): number => {
+    let k = 0;
+    if (sid !== current) {
+      // A series starts at its first stored day.
+      while (k < stop && view.getInt32(offset + 4 * k, true) === NO_ROW) k++;
+      if (k === stop) return 0;
+      emit();
+      current = sid;
+      first = day0 + k;
+      last = -1;
+      n = 0;
+    }
+    const at = day0 - first;
+    if (at + stop > dense.length) {
+      const next = new Float64Array(Math.max(at + stop, dense.length * 2));
+      next.set(dense.subarray(0, last + 1));
+      dense = next;
+    }
+    for (let j = last + 1; j < at + k; j++) dense[j] = Number.NaN;
+    totals.reserve(day0 + k, day0 + stop - 1);
+    const tu = totals.units;
+    const tr = totals.rows;
+    const tb = day0 - totals.base;
+    let stored = 0;
+    let lastHere = -1;
+    for (; k < stop; k++) {
+      const v = view.getInt32(offset + 4 * k, true);
+      if (v === NO_ROW) {
+        dense[at + k] = Number.NaN;
+        continue;
+      }
+      dense[at + k] = v;
+      tu[tb + k]! += v;
+      tr[tb + k]!++;
+      lastHere = k;
+      stored++;
+    }
+    if (stored > 0) {
+      last = at + lastHere;
+      n += stored;
+      totals.note(day0 + lastHere);
+      totals.note(first);
+    }
+    return stored;
+  };
+
   let rowsFromBlocks = 0;
   let rowsFromSales = 0;
   try {
@@ -220,13 +283,7 @@ export async function runSalesPass(
           drain(sid);
           blockSeries = sid;
         }
-        const stop = Math.min(BLOCK_DAYS, fromBlocks - day0 + 1);
-        for (let k = 0; k < stop; k++) {
-          const v = view.getInt32(offset + 4 * k, true);
-          if (v === NO_ROW) continue;
-          add(sid, day0 + k, v);
-          rowsFromBlocks++;
-        }
+        rowsFromBlocks += addBlock(sid, day0, view, offset, Math.min(BLOCK_DAYS, fromBlocks - day0 + 1));
       });
       drain(Number.POSITIVE_INFINITY);
     }
