@@ -123,18 +123,7 @@ function fillFromRecent(
   usable: number,
 ): number {
   let rows = 0;
-  for (const x of series) {
-    const m = mem.series.get(x.seriesId);
-    if (!m) continue;
-    const hi = Math.min(usable, m.first + m.units.length - 1);
-    for (let d = Math.max(base, m.first); d <= hi; d++) {
-      const v = m.units[d - m.first]!;
-      if (v !== NO_ROW) {
-        x.units[d - base] = v;
-        rows++;
-      }
-    }
-  }
+  for (const x of series) rows += mem.copy(x.seriesId, base, usable, x.units, base);
   return rows;
 }
 

@@ -12,30 +12,36 @@ import { NO_ROW } from './sales-blocks.js';
  */
 export const RECENT_DAYS = 512;
 
-interface RecentSeries {
-  /** Day of `units[0]`. */
-  readonly first: number;
-  /** Units per day, NO_ROW where no row. */
-  readonly units: Int32Array;
-}
-
 export interface RecentSales {
   /** The blocks' state whose days these are. */
   readonly state: CacheState;
   /** First and last day held (the last is the pass's cutoff). */
   readonly from: number;
   readonly upTo: number;
-  readonly series: ReadonlyMap<number, RecentSeries>;
   /** Each series' first stored day up to `upTo`. */
   readonly firstDays: ReadonlyMap<number, number>;
+  /**
+   * Days lo..hi of a series into `out` (index 0 = day `base`) where it has a row; returns the
+   * rows copied.
+   */
+  copy(seriesId: number, lo: number, hi: number, out: Float64Array, base: number): number;
 }
 
 let held: RecentSales | null = null;
 
-/** What a sales pass keeps while it streams the series (`runSalesPass` with copies kept). */
+/**
+ * What a sales pass keeps while it streams the series (`runSalesPass` with copies kept): every
+ * series' days in one growing array, so a pass allocates a few buffers instead of one per series.
+ */
 export class RecentSalesKeeper {
-  private readonly series = new Map<number, RecentSeries>();
   private readonly firstDays = new Map<number, number>();
+  /** Series id -> its span in `data`: first day, offset, length. */
+  private readonly spans = new Map<number, number>();
+  private firsts = new Int32Array(1024);
+  private offsets = new Int32Array(1024);
+  private lengths = new Int32Array(1024);
+  private data = new Int32Array(1 << 20);
+  private used = 0;
   /** A stored value equal to NO_ROW: nothing is kept (as the blocks refuse it). */
   private unencodable = false;
 
@@ -51,24 +57,66 @@ export class RecentSalesKeeper {
     if (this.unencodable || units.length === 0) return;
     this.firstDays.set(seriesId, firstDay);
     const start = Math.max(firstDay, this.from);
-    const last = firstDay + units.length - 1;
-    if (last < start) return;
-    const out = new Int32Array(last - start + 1);
-    for (let d = start; d <= last; d++) {
-      const v = units[d - firstDay]!;
-      if (v === NO_ROW) this.unencodable = true;
-      out[d - start] = Number.isNaN(v) ? NO_ROW : v;
+    const len = firstDay + units.length - start;
+    if (len <= 0) return;
+    const slot = this.spans.size;
+    if (slot === this.firsts.length) {
+      this.firsts = grown(this.firsts, slot * 2);
+      this.offsets = grown(this.offsets, slot * 2);
+      this.lengths = grown(this.lengths, slot * 2);
     }
-    this.series.set(seriesId, { first: start, units: out });
+    if (this.used + len > this.data.length) this.data = grown(this.data, 2 * (this.used + len));
+    const out = this.data;
+    const at = this.used;
+    const skip = start - firstDay;
+    for (let i = 0; i < len; i++) {
+      const v = units[skip + i]!;
+      if (v === NO_ROW) this.unencodable = true;
+      out[at + i] = Number.isNaN(v) ? NO_ROW : v;
+    }
+    this.spans.set(seriesId, slot);
+    this.firsts[slot] = start;
+    this.offsets[slot] = at;
+    this.lengths[slot] = len;
+    this.used += len;
   }
 
   /** Keeps what was added as the days of the blocks in `state`; null keeps nothing. */
   finish(state: CacheState | null): void {
-    held =
-      state === null || this.unencodable
-        ? null
-        : { state, from: this.from, upTo: this.upTo, series: this.series, firstDays: this.firstDays };
+    if (state === null || this.unencodable) {
+      held = null;
+      return;
+    }
+    const { spans, firsts, offsets, lengths, data } = this;
+    held = {
+      state,
+      from: this.from,
+      upTo: this.upTo,
+      firstDays: this.firstDays,
+      copy(seriesId, lo, hi, out, base) {
+        const slot = spans.get(seriesId);
+        if (slot === undefined) return 0;
+        const first = firsts[slot]!;
+        const at = offsets[slot]! - first;
+        const last = Math.min(hi, first + lengths[slot]! - 1);
+        let rows = 0;
+        for (let d = Math.max(lo, first); d <= last; d++) {
+          const v = data[at + d]!;
+          if (v !== NO_ROW) {
+            out[d - base] = v;
+            rows++;
+          }
+        }
+        return rows;
+      },
+    };
   }
+}
+
+function grown(a: Int32Array, size: number): Int32Array<ArrayBuffer> {
+  const b = new Int32Array(size);
+  b.set(a);
+  return b;
 }
 
 /** The kept days when they are those of the blocks in `state` and hold days from..upTo, else null. */

@@ -19,13 +19,28 @@ describe('recent days kept by the check pass', () => {
     k.add(2, 998, Float64Array.from([0, 4]));
     k.finish(STATE);
     const r = recentSales(STATE, 995, 1000)!;
-    expect(r.series.get(1)!.first).toBe(995);
-    expect(Array.from(r.series.get(1)!.units)).toEqual([6, 7, NO_ROW, 9, 10]);
-    expect(Array.from(r.series.get(2)!.units)).toEqual([0, 4]);
+    // Days 993..1000 into an array whose index 0 is day 993: nothing kept before 995.
+    const days = (id: number) => {
+      const out = new Float64Array(8).fill(Number.NaN);
+      const rows = r.copy(id, 993, 1000, out, 993);
+      return { rows, out: Array.from(out) };
+    };
+    const N = Number.NaN;
+    expect(days(1)).toEqual({ rows: 4, out: [N, N, 6, 7, N, 9, 10, N] });
+    expect(days(2)).toEqual({ rows: 2, out: [N, N, N, N, N, 0, 4, N] });
+    expect(days(3)).toEqual({ rows: 0, out: [N, N, N, N, N, N, N, N] });
     expect([...recentFirstDays(STATE, 1000)!]).toEqual([
       [1, 990],
       [2, 998],
     ]);
+    // Many series grow the shared array: each keeps its own days.
+    const many = new RecentSalesKeeper(0, 1000);
+    for (let id = 0; id < 3000; id++) many.add(id, 400 + (id % 7), new Float64Array(601 - (id % 7)).fill(id));
+    many.finish(STATE);
+    const m = recentSales(STATE, 0, 1000)!;
+    const one = new Float64Array(1001).fill(Number.NaN);
+    expect(m.copy(2999, 0, 1000, one, 0)).toBe(601 - (2999 % 7));
+    expect([one[399 + (2999 % 7)], one[400 + (2999 % 7)], one[1000]]).toEqual([N, 2999, 2999]);
   });
 
   it('gives nothing for another state of the blocks, or days it does not hold', () => {
