@@ -35,7 +35,7 @@ let held: RecentSales | null = null;
  */
 export class RecentSalesKeeper {
   private readonly firstDays = new Map<number, number>();
-  /** Series id -> its span in `data`: first day, offset, length. */
+  /** Series id -> its slot in `firsts`, `offsets` and `lengths` (its first day and span in `data`). */
   private readonly spans = new Map<number, number>();
   private firsts = new Int32Array(1024);
   private offsets = new Int32Array(1024);

@@ -221,14 +221,7 @@ export function createRedisCache(opts: RedisCacheOptions): FeatureCache {
     }
     // MGET needs a key; an empty read answers as the in-process cache does.
     if (!bulkTarget || keys.length === 0) return packBatch(await getBuffers(keys), floats);
-    try {
-      return await (await bulkConnection()).mget(keys, floats);
-    } catch (err) {
-      if (err instanceof LarderError) throw err;
-      throw new CacheUnavailableError(`${what} did not answer MGET: ${(err as Error).message}`, {
-        cause: err,
-      });
-    }
+    return onBulk('MGET', (c) => c.mget(keys, floats));
   };
   return {
     kind: target.cluster ? 'cluster' : 'redis',
