@@ -29,6 +29,11 @@ export interface RunChecksOptions {
    */
   readonly keepCopies?: boolean | undefined;
   /**
+   * With `keepCopies`: keep each series' newest days in this process as well (recent-sales.ts),
+   * for a build that follows in the same process (the job runner's).
+   */
+  readonly keepRecent?: boolean | undefined;
+  /**
    * Which findings `findings` holds: every one (default), or only the blocking ones (the job
    * runner's gate, which prints a few of them: a chain's run has tens of thousands of warnings,
    * and reading them all back took the server 0.1 s a night on the 57M-row chain, before this
@@ -152,7 +157,14 @@ export async function runChecks(
   // The two passes run side by side (checks that need both match them up afterwards).
   const salesPass = new SharedPass<SeriesVisitor, SalesPassResult>(readers('sales'), async (v) => {
     salesResult = await timed('pass:sales', () =>
-      runSalesPass(db, cutoff, v, (d) => retailWeekStart(d, weekStartsOn), opts.keepCopies ?? false),
+      runSalesPass(
+        db,
+        cutoff,
+        v,
+        (d) => retailWeekStart(d, weekStartsOn),
+        opts.keepCopies ?? false,
+        (opts.keepCopies ?? false) && (opts.keepRecent ?? false),
+      ),
     );
     return salesResult;
   });

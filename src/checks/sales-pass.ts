@@ -133,6 +133,8 @@ export async function runSalesPass(
   weekStart: (day: number) => number,
   /** Store the blocks of the days read from `sales` for later passes (the job runner's checks). */
   keepCopies = false,
+  /** Also keep each series' newest days in this process for the build that follows (recent-sales.ts). */
+  keepRecent = false,
 ): Promise<SalesPassResult> {
   const totals = new DayAccumulator();
   // Each series is written straight into its dense array as its rows arrive in day order: days
@@ -157,7 +159,7 @@ export async function runSalesPass(
 
   // The runner's build reads the newest days next: they stay in this process (recent-sales.ts).
   const keeper =
-    keepCopies && cutoff !== null ? new RecentSalesKeeper(cutoff - RECENT_DAYS + 1, cutoff) : null;
+    keepRecent && cutoff !== null ? new RecentSalesKeeper(cutoff - RECENT_DAYS + 1, cutoff) : null;
 
   const emit = () => {
     if (n === 0) return;

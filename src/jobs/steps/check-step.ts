@@ -18,6 +18,7 @@ export const checkStep: PipelineStep = {
       cutoff: env.cutoff,
       scheduled: env.settings.scheduled,
       keepCopies: true,
+      keepRecent: true,
       readBack: 'blocking',
       today: dayInZone(new Date()),
     });

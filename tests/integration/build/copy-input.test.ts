@@ -63,8 +63,8 @@ beforeAll(async () => {
   );
   const checks = Object.fromEntries(CHECK_NAMES.map((c) => [c, { severity: 'warn' }]));
   config = parseConfig({ database: t().config.database, checks }, 'test');
-  // The runner's check step: it stores both copies.
-  const r = await runChecks(db, config, { cutoff: LAST, today: LAST, keepCopies: true });
+  // The runner's check step: it stores both copies and keeps the newest days in this process.
+  const r = await runChecks(db, config, { cutoff: LAST, today: LAST, keepCopies: true, keepRecent: true });
   expect(r.pricesSource?.stored).toBe(true);
   stores = (await db.query<{ s: string }>('SELECT DISTINCT store_id AS s FROM series ORDER BY 1')).rows.map(
     (r) => r.s,
