@@ -63,6 +63,12 @@ interface StagedCache {
 let staged: StagedCache | null = null;
 const MAX_CACHED_VALUES = 32_000_000; // about 512 MB of totals and counts
 
+/** The table's OID (null: no such table): a table dropped and made again under its name gets another. */
+async function tableOid(s: DbSession, table: string): Promise<string | null> {
+  const r = await s.query<{ oid: string | null }>('SELECT to_regclass($1)::oid::text AS oid', [table]);
+  return r.rows[0]?.oid ?? null;
+}
+
 /**
  * Keeps in this process's cache the totals it has just staged into `table` over days
  * base..cutoff (chain-groups.ts), as `readStagedGroups` would read them back: the planner's own
@@ -77,8 +83,7 @@ export async function seedStagedGroups(
   values: number,
 ): Promise<void> {
   if (values > MAX_CACHED_VALUES) return;
-  const oid = (await s.query<{ oid: string | null }>('SELECT to_regclass($1)::oid::text AS oid', [table]))
-    .rows[0]?.oid;
+  const oid = await tableOid(s, table);
   if (!oid) return;
   staged = {
     id: `${oid}:${table}:${base}:${cutoff}`,
@@ -101,8 +106,7 @@ export async function readStagedGroups(
   into: GroupMap,
 ): Promise<void> {
   const len = cutoff - base + 1;
-  const oid = (await s.query<{ oid: string | null }>('SELECT to_regclass($1)::oid::text AS oid', [table]))
-    .rows[0]?.oid;
+  const oid = await tableOid(s, table);
   const id = `${oid}:${table}:${base}:${cutoff}`;
   if (staged?.id !== id) staged = oid ? { id, groups: new Map(), values: 0 } : null;
   const cache = staged;

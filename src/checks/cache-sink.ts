@@ -67,8 +67,12 @@ export async function claimCache(
   if (!got.rows[0]!.ok) return false;
   const now = await readCacheState(tx, table);
   if (now === null || planned === null) return now === planned;
-  return now.coveredTo === planned.coveredTo && now.last === planned.last && now.count === planned.count;
+  return sameCacheState(now, planned);
 }
+
+/** Whether two states name the same copy: the same covered day and change-log mark. */
+export const sameCacheState = (a: CacheState, b: CacheState): boolean =>
+  a.coveredTo === b.coveredTo && a.last === b.last && a.count === b.count;
 
 /** Records what a cache now covers and the change-log mark it is valid from. */
 export async function writeCacheState(

@@ -1,4 +1,4 @@
-import type { CacheState } from './cache-sink.js';
+import { type CacheState, sameCacheState } from './cache-sink.js';
 import { NO_ROW } from './sales-blocks.js';
 
 /**
@@ -123,18 +123,15 @@ function grown(a: Int32Array, size: number): Int32Array<ArrayBuffer> {
 export function recentSales(state: CacheState, from: number, upTo: number): RecentSales | null {
   const h = held;
   if (h === null || from < h.from || upTo > h.upTo) return null;
-  return sameState(h.state, state) ? h : null;
+  return sameCacheState(h.state, state) ? h : null;
 }
 
 /** Each series' first stored day as the blocks in `state` give it, when the pass read up to `upTo`, else null. */
 export function recentFirstDays(state: CacheState, upTo: number): ReadonlyMap<number, number> | null {
   const h = held;
   if (h === null || upTo > h.upTo) return null;
-  return sameState(h.state, state) ? h.firstDays : null;
+  return sameCacheState(h.state, state) ? h.firstDays : null;
 }
-
-const sameState = (a: CacheState, b: CacheState) =>
-  a.coveredTo === b.coveredTo && a.last === b.last && a.count === b.count;
 
 /** Forgets the kept days (tests compare both readers). */
 export function forgetRecentSales(): void {

@@ -219,6 +219,7 @@ export async function runSalesPass(
       first = day0 + k;
       last = -1;
       n = 0;
+      totals.note(first);
     }
     const at = day0 - first;
     if (at + stop > dense.length) {
@@ -249,7 +250,6 @@ export async function runSalesPass(
       last = at + lastHere;
       n += stored;
       totals.note(day0 + lastHere);
-      totals.note(first);
     }
     return stored;
   };

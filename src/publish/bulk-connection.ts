@@ -202,14 +202,18 @@ export class BulkConnection {
     if (this.closed) return Promise.reject(this.closed);
     return new Promise<PackedBatch>((resolve, reject) => {
       const pending: Pending = { ...p, resolve, reject };
-      // Replies are matched by order: after a timeout the stream cannot be trusted, so it is closed.
-      pending.timer = setTimeout(() => {
-        this.fail(new CacheUnavailableError(`Redis did not answer ${p.what} in ${this.timeoutMs} ms`));
-        this.socket.destroy();
-      }, this.timeoutMs);
+      pending.timer = this.deadline(p.what);
       this.queue.push(pending);
       this.socket.write(cmd);
     });
+  }
+
+  /** Replies are matched by order: after a timeout the stream cannot be trusted, so it is closed. */
+  private deadline(what: string): NodeJS.Timeout {
+    return setTimeout(() => {
+      this.fail(new CacheUnavailableError(`Redis did not answer ${what} in ${this.timeoutMs} ms`));
+      this.socket.destroy();
+    }, this.timeoutMs);
   }
 
   private write(out: ReadonlyArray<string | Uint8Array>, replies: number, what: string): Promise<number> {
@@ -217,10 +221,7 @@ export class BulkConnection {
     if (replies === 0) return Promise.resolve(0);
     return new Promise<number>((resolve, reject) => {
       const b: WriteBatch = { replies, what, got: 0, sum: 0, error: null, resolve, reject };
-      b.timer = setTimeout(() => {
-        this.fail(new CacheUnavailableError(`Redis did not answer ${what} in ${this.timeoutMs} ms`));
-        this.socket.destroy();
-      }, this.timeoutMs);
+      b.timer = this.deadline(what);
       this.queue.push(b);
       this.socket.cork();
       for (const chunk of out) this.socket.write(chunk);
